@@ -1,0 +1,3 @@
+from facies_ml.cli import main
+
+raise SystemExit(main())

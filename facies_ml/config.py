@@ -1,0 +1,186 @@
+"""Load project settings (YAML) and the files they point to (facies scheme, aliases, rules)."""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from facies_ml.errors import InputError
+
+CONFIG_DIR = Path(__file__).resolve().parent.parent / "configs"
+DEFAULT_CONFIG = CONFIG_DIR / "default.yaml"
+
+
+def read_yaml(path: str | Path) -> dict[str, Any]:
+    """Read a YAML mapping; a missing or malformed file is an :class:`InputError`."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("configuration file not found", file=str(path))
+    try:
+        data = yaml.safe_load(path.read_text())
+    except yaml.YAMLError as exc:
+        raise InputError(f"not valid YAML ({exc.__class__.__name__})", file=str(path)) from None
+    if not isinstance(data, dict):
+        raise InputError("expected a mapping at the top level", file=str(path))
+    return data
+
+
+def _merge(base: dict[str, Any], override: dict[str, Any]) -> dict[str, Any]:
+    out = copy.deepcopy(base)
+    for key, value in override.items():
+        if isinstance(value, dict) and isinstance(out.get(key), dict):
+            out[key] = _merge(out[key], value)
+        else:
+            out[key] = copy.deepcopy(value)
+    return out
+
+
+@dataclass(frozen=True)
+class FaciesClass:
+    code: int
+    label: str
+    name: str
+    adjacent: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class FaciesScheme:
+    """The lithofacies classes a project predicts, in a fixed order (class index = position)."""
+
+    name: str
+    classes: tuple[FaciesClass, ...]
+    systems_tracts: tuple[str, ...] = ("LST", "TST", "EHST", "LHST")
+
+    @property
+    def labels(self) -> list[str]:
+        return [c.label for c in self.classes]
+
+    @property
+    def codes(self) -> list[int]:
+        return [c.code for c in self.classes]
+
+    def index_of(self, value: object) -> int | None:
+        """Class index for a label or a code (as int or text); ``None`` if unknown."""
+        text = str(value).strip()
+        for i, c in enumerate(self.classes):
+            if text == c.label or text == str(c.code):
+                return i
+        try:
+            number = float(text)
+        except ValueError:
+            return None
+        for i, c in enumerate(self.classes):
+            if number == c.code:
+                return i
+        return None
+
+    def adjacency_matrix(self) -> list[list[bool]]:
+        """``adj[i][j]`` is True when class j is the same as or adjacent to class i."""
+        labels = self.labels
+        n = len(labels)
+        adj = [[i == j for j in range(n)] for i in range(n)]
+        for i, c in enumerate(self.classes):
+            for other in c.adjacent:
+                if other in labels:
+                    j = labels.index(other)
+                    adj[i][j] = adj[j][i] = True
+        return adj
+
+
+def load_facies_scheme(path: str | Path) -> FaciesScheme:
+    data = read_yaml(path)
+    classes = []
+    seen: set[str] = set()
+    for i, item in enumerate(data.get("classes") or []):
+        try:
+            fc = FaciesClass(
+                code=int(item["code"]),
+                label=str(item["label"]),
+                name=str(item.get("name", item["label"])),
+                adjacent=tuple(str(a) for a in item.get("adjacent", []) or []),
+            )
+        except (KeyError, TypeError, ValueError):
+            raise InputError(f"facies class #{i + 1} needs an integer code and a label",
+                             file=str(path)) from None
+        if fc.label in seen:
+            raise InputError(f"facies label {fc.label!r} is listed twice", file=str(path))
+        seen.add(fc.label)
+        classes.append(fc)
+    if len(classes) < 2:
+        raise InputError("a facies scheme needs at least two classes", file=str(path))
+    tracts = tuple(data.get("systems_tracts") or ("LST", "TST", "EHST", "LHST"))
+    return FaciesScheme(name=str(data.get("name", Path(path).stem)), classes=tuple(classes),
+                        systems_tracts=tracts)
+
+
+@dataclass
+class Config:
+    """Project settings plus the loaded facies scheme. ``raw`` is the merged YAML mapping."""
+
+    raw: dict[str, Any]
+    base_dir: Path
+    facies: FaciesScheme = field(init=False)
+
+    def __post_init__(self) -> None:
+        self.facies = load_facies_scheme(self.path("facies_scheme"))
+
+    def path(self, key: str) -> Path:
+        """Absolute path of a file named under ``files:``."""
+        value = self.raw.get("files", {}).get(key)
+        if value is None:
+            raise InputError(f"configuration has no files.{key}")
+        p = Path(value)
+        return p if p.is_absolute() else (self.base_dir / p)
+
+    def section(self, name: str) -> dict[str, Any]:
+        return dict(self.raw.get(name) or {})
+
+    @property
+    def working_unit(self) -> str:
+        return str(self.raw["project"]["working_depth_unit"])
+
+    @property
+    def step(self) -> float:
+        return float(self.raw["project"]["step"])
+
+    @property
+    def seed(self) -> int:
+        return int(self.raw["project"].get("seed", 0))
+
+    def digest(self) -> str:
+        """SHA-256 of the settings and of every file they point to (stable across runs)."""
+        h = hashlib.sha256(json.dumps(self.raw, sort_keys=True, default=str).encode())
+        for key in sorted(self.raw.get("files", {})):
+            p = self.path(key)
+            if p.is_file():
+                h.update(p.read_bytes())
+        return h.hexdigest()
+
+
+def load_config(path: str | Path | None = None, overrides: dict[str, Any] | None = None) -> Config:
+    """Default settings, overlaid by the user file ``path`` (if any), then by ``overrides``.
+
+    Relative ``files:`` entries in the user file resolve against the user file's folder;
+    entries it leaves out resolve against the bundled ``configs/``.
+    """
+    raw = read_yaml(DEFAULT_CONFIG)
+    base_dir = CONFIG_DIR
+    if path is not None:
+        user = read_yaml(path)
+        user_dir = Path(path).resolve().parent
+        for key, value in (user.get("files") or {}).items():
+            p = Path(value)
+            user["files"][key] = str(p if p.is_absolute() else user_dir / p)
+        raw = _merge(raw, user)
+    if overrides:
+        raw = _merge(raw, overrides)
+    unit = raw.get("project", {}).get("working_depth_unit")
+    if unit not in ("ft", "m"):
+        raise InputError(f"project.working_depth_unit must be 'ft' or 'm', not {unit!r}")
+    return Config(raw=raw, base_dir=base_dir)
