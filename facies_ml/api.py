@@ -1,0 +1,219 @@
+"""Library entry points a notebook user (or the CLI) calls: train, evaluate, predict, retrain.
+
+All depths are handled in the project working unit (``configs/default.yaml``); outputs also
+carry each well's original depth. Predictions are probabilistic and must be reviewed by a
+qualified geoscientist before any decision.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from facies_ml.config import Config, load_config
+from facies_ml.core import align_core_labels, read_core_gamma, read_core_intervals
+from facies_ml.errors import InputError
+from facies_ml.evaluation import leave_one_well_out
+from facies_ml.pipeline import FaciesPipeline, WellPrediction
+from facies_ml.report.outputs import (
+    write_json,
+    write_prediction_csv,
+    write_prediction_las,
+    write_tops,
+)
+from facies_ml.store import load_version, read_registry, save_version
+from facies_ml.wells import Well, read_wells
+
+Progress = Callable[[str], None] | None
+
+
+@dataclass
+class CoredProject:
+    """Conditioned wells plus per-sample core labels of the cored ones."""
+
+    wells: list[Well]
+    labels: dict[str, pd.DataFrame]
+    failures: list[dict[str, Any]]
+
+    @property
+    def cored(self) -> list[Well]:
+        return [w for w in self.wells if w.name in self.labels]
+
+    @property
+    def uncored(self) -> list[Well]:
+        return [w for w in self.wells if w.name not in self.labels]
+
+
+def _config(config: Config | str | Path | None) -> Config:
+    return config if isinstance(config, Config) else load_config(config)
+
+
+def load_project(wells_path: str | Path, core_path: str | Path | None, config: Config,
+                 core_gamma_path: str | Path | None = None, on_error: str = "raise") -> CoredProject:
+    """Read and condition every well under ``wells_path`` and align the core labels to them."""
+    wells_path = Path(wells_path)
+    if not wells_path.exists():
+        raise InputError("wells folder or file not found", file=str(wells_path))
+    wells, failures = read_wells(wells_path, config, on_error=on_error)
+    if not wells:
+        raise InputError("no readable well found", file=str(wells_path))
+    names = [w.name for w in wells]
+    dupes = sorted({n for n in names if names.count(n) > 1})
+    if dupes:
+        raise InputError(f"well name(s) appear in more than one file: {', '.join(dupes)}",
+                         file=str(wells_path))
+    labels: dict[str, pd.DataFrame] = {}
+    if core_path is not None:
+        core_path = Path(core_path)
+        intervals = read_core_intervals(core_path, config.facies, known_wells=names)
+        gamma = read_core_gamma(core_gamma_path) if core_gamma_path else None
+        cored = [w for w in wells if w.name in set(intervals["well"])]
+        labels = align_core_labels(cored, intervals, gamma, config)
+    return CoredProject(wells=wells, labels=labels, failures=failures)
+
+
+def evaluate(wells_path: str | Path, core_path: str | Path, out_dir: str | Path,
+             config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
+             progress: Progress = None) -> dict[str, Any]:
+    """Leave-one-well-out over the cored wells; writes ``metrics.json`` in ``out_dir``."""
+    cfg = _config(config)
+    project = load_project(wells_path, core_path, cfg, core_gamma_path)
+    metrics, _ = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
+    metrics["intake"] = {w.name: w.intake for w in project.cored}
+    write_json(Path(out_dir) / "metrics.json", metrics)
+    return metrics
+
+
+def train(wells_path: str | Path, core_path: str | Path, model_dir: str | Path,
+          config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
+          held_out_metrics: dict[str, Any] | None = None, progress: Progress = None,
+          promote: bool = True, notes: str = "") -> tuple[str, FaciesPipeline]:
+    """Fit on all cored wells and save a new model version (champion by default)."""
+    cfg = _config(config)
+    project = load_project(wells_path, core_path, cfg, core_gamma_path)
+    if progress:
+        progress(f"training on {len(project.cored)} cored wells")
+    pipe = FaciesPipeline(cfg).fit(project.cored, project.labels)
+    version = save_version(
+        pipe, model_dir,
+        training_files={w.name: w.source for w in project.cored},
+        config_raw=cfg.raw, config_hash=cfg.digest(), metrics=held_out_metrics,
+        notes=notes, promote=promote)
+    return version, pipe
+
+
+def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
+            version: str | None = None, progress: Progress = None) -> dict[str, Any]:
+    """Predict every well under ``wells_path`` with the champion (or ``version``).
+
+    One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason.
+    Writes ``<well>.csv``, ``<well>.las``, ``tops.csv``, ``summary.json`` in ``out_dir``.
+    """
+    pipe, manifest = load_version(model_dir, version)
+    cfg = pipe.config
+    wells, failures = read_wells(Path(wells_path), cfg, on_error="collect")
+    out_dir = Path(out_dir)
+    preds = predict_wells(pipe, wells, failures, progress)
+    summary = write_predictions(pipe, preds, failures, out_dir)
+    summary["model_version"] = manifest["version"]
+    write_json(out_dir / "summary.json", summary)
+    return summary
+
+
+def predict_wells(pipe: FaciesPipeline, wells: list[Well], failures: list[dict[str, Any]],
+                  progress: Progress = None) -> list[WellPrediction]:
+    """Predict each well; an :class:`InputError` moves the well to ``failures``."""
+    preds = []
+    for w in wells:
+        if progress:
+            progress(f"predicting {w.name}")
+        try:
+            preds.append(pipe.predict_well(w))
+        except InputError as exc:
+            failures.append({"well": w.name, "file": w.source, "reason": str(exc)})
+    return preds
+
+
+def write_predictions(pipe: FaciesPipeline, preds: list[WellPrediction],
+                      failures: list[dict[str, Any]], out_dir: Path) -> dict[str, Any]:
+    cfg = pipe.config
+    tract_names = list(getattr(pipe, "tract_names_", []))
+    summary: dict[str, Any] = {"wells": {}, "failures": failures}
+    for p in preds:
+        write_prediction_csv(p, out_dir / f"{p.well.name}.csv")
+        write_prediction_las(p, out_dir / f"{p.well.name}.las", cfg.facies.codes,
+                             cfg.facies.labels, tract_names)
+        summary["wells"][p.well.name] = {
+            "model_used": p.model_used,
+            "out_of_range_fraction": round(p.out_of_range_fraction, 4),
+            "surfaces": len(p.surfaces),
+            "rule_violations": p.rule_violations,
+            "intake": p.well.intake,
+        }
+    write_tops(preds, out_dir / "tops.csv")
+    fail_frame = pd.DataFrame(failures, columns=["well", "file", "reason"])
+    from facies_ml.report.outputs import atomic_write
+
+    atomic_write(out_dir / "failures.csv", lambda tmp: fail_frame.to_csv(tmp, index=False))
+    return summary
+
+
+def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path,
+            config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
+            force: bool = False, progress: Progress = None) -> dict[str, Any]:
+    """Champion/challenger: fit a challenger on all cored wells and promote it only if it is
+    not worse than the champion by ``evaluation.promote_margin`` (macro-F1), unless ``force``.
+
+    Comparison: (1) held-out (leave-one-well-out) scores on the champion's training wells, the
+    challenger's folds against the champion's recorded folds; (2) the new cored wells, which the
+    champion never saw: champion applied directly vs the challenger's held-out fold.
+    """
+    champion, manifest = load_version(model_dir)
+    cfg = _config(config) if config is not None else champion.config
+    project = load_project(wells_path, core_path, cfg, core_gamma_path)
+    old_wells = set(manifest.get("training_wells", {}))
+    new_wells = [w for w in project.cored if w.name not in old_wells]
+    metrics, held_preds = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
+    from facies_ml.evaluation import score_well
+
+    champ_folds = (manifest.get("metrics") or {}).get("wells", {})
+    rows = []
+    for w in project.cored:
+        chal = metrics["wells"][w.name]
+        if w.name in old_wells:
+            champ_f1 = (champ_folds.get(w.name) or {}).get("lithofacies_f1_macro")
+            basis = "held-out fold (champion's recorded metrics)"
+        else:
+            champ_f1 = score_well(champion.predict_well(w), project.labels[w.name],
+                                  champion)["lithofacies_f1_macro"]
+            basis = "new well, champion never saw it"
+        rows.append({"well": w.name, "champion_f1": champ_f1,
+                     "challenger_f1": chal["lithofacies_f1_macro"], "basis": basis})
+    pairs = [(r["champion_f1"], r["challenger_f1"]) for r in rows
+             if r["champion_f1"] is not None and r["challenger_f1"] is not None]
+    margin = float(cfg.section("evaluation").get("promote_margin", 0.01))
+    champ_mean = sum(p[0] for p in pairs) / len(pairs) if pairs else None
+    chal_mean = sum(p[1] for p in pairs) / len(pairs) if pairs else None
+    better = champ_mean is None or (chal_mean is not None and chal_mean >= champ_mean - margin)
+    promote = bool(force or better)
+    if force and not better:
+        reason = "forced promotion (--force) although the challenger scored lower"
+    elif better:
+        reason = (f"challenger mean macro-F1 {chal_mean:.3f} vs champion {champ_mean:.3f}"
+                  f" (margin {margin})" if champ_mean is not None else "no champion scores")
+    else:
+        reason = (f"kept champion: challenger mean macro-F1 {chal_mean:.3f} is worse than "
+                  f"{champ_mean:.3f} by more than the margin {margin}")
+    pipe = FaciesPipeline(cfg).fit(project.cored, project.labels)
+    version = save_version(
+        pipe, model_dir, training_files={w.name: w.source for w in project.cored},
+        config_raw=cfg.raw, config_hash=cfg.digest(), metrics=metrics, promote=promote,
+        notes=f"retrain with new wells {[w.name for w in new_wells]}: {reason}")
+    return {"challenger": version, "champion_before": manifest["version"],
+            "champion_after": read_registry(model_dir)["champion"], "promoted": promote,
+            "reason": reason, "comparison": rows, "new_wells": [w.name for w in new_wells],
+            "champion_mean_f1": champ_mean, "challenger_mean_f1": chal_mean}

@@ -1,0 +1,159 @@
+"""Command-line shell over :mod:`facies_ml.api`. Bad input exits 2 with one ``error:`` line."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import traceback
+from pathlib import Path
+
+from facies_ml import CAUTION, __version__
+from facies_ml.errors import InputError
+
+
+def _progress(msg: str) -> None:
+    print(f"  .. {msg}", file=sys.stderr, flush=True)
+
+
+def _add_config(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--config", help="project settings YAML (default: bundled configs/default.yaml)")
+
+
+def _add_core(p: argparse.ArgumentParser, required: bool = True) -> None:
+    p.add_argument("--core", required=required, help="core intervals CSV: well,top,base,lithofacies"
+                   "[,systems_tract]; depths in each well's LAS depth unit")
+    p.add_argument("--core-gamma", help="optional core gamma CSV (well,depth,core_gr_api) used to "
+                   "estimate the core-to-log depth shift")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="facies-ml",
+        description="Core-calibrated lithofacies and systems-tract prediction for shale wells.",
+        epilog=CAUTION)
+    parser.add_argument("--version", action="version", version=f"facies_ml {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    p = sub.add_parser("synth", help="generate a synthetic demo basin (LAS + core + truth)")
+    p.add_argument("--out", required=True)
+    p.add_argument("--wells", type=int, default=10)
+    p.add_argument("--seed", type=int, default=20261202)
+
+    p = sub.add_parser("train", help="fit on cored key wells and save a model version")
+    p.add_argument("--wells", required=True, help="folder of LAS/CSV/Parquet files, or one file")
+    _add_core(p)
+    p.add_argument("--model-dir", required=True)
+    _add_config(p)
+
+    p = sub.add_parser("evaluate", help="leave-one-well-out over the cored wells")
+    p.add_argument("--wells", required=True)
+    _add_core(p)
+    p.add_argument("--out", required=True, help="folder for metrics.json")
+    _add_config(p)
+
+    p = sub.add_parser("predict", help="predict offset wells with the serving model")
+    p.add_argument("--model-dir", required=True)
+    p.add_argument("--wells", required=True, help="folder of wells or one LAS/CSV file")
+    p.add_argument("--out", required=True)
+    p.add_argument("--version", dest="model_version", help="model version (default: champion)")
+
+    p = sub.add_parser("retrain", help="champion/challenger retrain with new cored wells")
+    p.add_argument("--model-dir", required=True)
+    p.add_argument("--wells", required=True)
+    _add_core(p)
+    _add_config(p)
+    p.add_argument("--force", action="store_true", help="promote the challenger regardless")
+
+    p = sub.add_parser("models", help="list model versions, or roll back / promote one")
+    p.add_argument("--model-dir", required=True)
+    p.add_argument("--serve", metavar="VERSION", help="make VERSION the serving model")
+
+    p = sub.add_parser("demo", help="evaluate, train and predict on the bundled demo basin")
+    p.add_argument("--out", default="demo_output")
+    p.add_argument("--wells", help="demo basin folder (default: bundled synthetic_wells/)")
+    return parser
+
+
+def run(args: argparse.Namespace) -> int:
+    from facies_ml import api
+
+    if args.command == "synth":
+        from facies_ml.synthetic import generate_basin
+
+        if args.wells < 2:
+            raise InputError("--wells must be at least 2")
+        generate_basin(args.out, n_wells=args.wells, n_cored=min(5, max(1, args.wells // 2)),
+                       seed=args.seed)
+        print(f"wrote a synthetic basin of {args.wells} wells to {args.out}")
+    elif args.command == "evaluate":
+        from facies_ml.evaluation import format_table
+
+        metrics = api.evaluate(args.wells, args.core, args.out, args.config, args.core_gamma,
+                               progress=_progress)
+        print(format_table(metrics))
+        print(f"wrote {Path(args.out) / 'metrics.json'}")
+    elif args.command == "train":
+        version, pipe = api.train(args.wells, args.core, args.model_dir, args.config,
+                                  args.core_gamma, progress=_progress)
+        print(f"saved model {version} trained on {', '.join(pipe.training_wells_)} "
+              f"in {args.model_dir}")
+    elif args.command == "predict":
+        summary = api.predict(args.model_dir, args.wells, args.out, args.model_version,
+                              progress=_progress)
+        print(f"predicted {len(summary['wells'])} wells with model {summary['model_version']}; "
+              f"{len(summary['failures'])} failed (see failures.csv); outputs in {args.out}")
+        for f in summary["failures"]:
+            print(f"  failed: {f['well'] or f['file']}: {f['reason']}")
+    elif args.command == "retrain":
+        result = api.retrain(args.model_dir, args.wells, args.core, args.config,
+                             args.core_gamma, force=args.force, progress=_progress)
+        print(f"{'well':<12}{'champion_F1':>13}{'challenger_F1':>15}  basis")
+        for r in result["comparison"]:
+            c = "-" if r["champion_f1"] is None else f"{r['champion_f1']:.3f}"
+            n = "-" if r["challenger_f1"] is None else f"{r['challenger_f1']:.3f}"
+            print(f"{r['well']:<12}{c:>13}{n:>15}  {r['basis']}")
+        verdict = "PROMOTED" if result["promoted"] else "KEPT CHAMPION"
+        print(f"{verdict}: {result['reason']}; serving {result['champion_after']}")
+    elif args.command == "models":
+        from facies_ml.store import list_versions, set_champion
+
+        if args.serve:
+            set_champion(args.model_dir, args.serve)
+            print(f"now serving {args.serve}")
+        for row in list_versions(args.model_dir):
+            print(json.dumps(row))
+    elif args.command == "demo":
+        from facies_ml.demo import run_demo
+
+        run_demo(args.out, args.wells, progress=_progress)
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return run(args)
+    except InputError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except (OSError, ValueError) as exc:
+        if args.debug:
+            traceback.print_exc()
+        print(f"error: {exc.__class__.__name__}: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # noqa: BLE001 - last resort: one line, not a traceback
+        if args.debug:
+            traceback.print_exc()
+        print(f"error: internal error {exc.__class__.__name__}: {exc} (rerun with --debug)",
+              file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,273 @@
+"""Held-out per-well evaluation: leave-one-well-out of the whole pipeline, and its metrics.
+
+A well is never in its own training set: for each cored well the complete
+:class:`~facies_ml.pipeline.FaciesPipeline` (normalization, features reference, both
+classifiers, transition and thickness statistics) is refitted on the other cored wells.
+Depths are in the project working unit; surfaces are compared within
+``evaluation.surface_match_tolerance``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sklearn.metrics import (
+    accuracy_score,
+    confusion_matrix,
+    f1_score,
+    precision_recall_fscore_support,
+)
+
+from facies_ml.config import Config
+from facies_ml.pipeline import FaciesPipeline, WellPrediction
+from facies_ml.sequence import pick_surfaces
+from facies_ml.wells import Well
+
+PER_WELL_KEYS = (
+    "lithofacies_accuracy",
+    "lithofacies_f1_macro",
+    "systems_tract_accuracy",
+    "systems_tract_accuracy_raw",
+    "mfs_depth_error",
+    "sb_depth_error",
+    "rule_violations",
+    "rule_violations_raw",
+)
+
+
+def brier_score(y_true: np.ndarray, proba: np.ndarray) -> float:
+    """Multi-class Brier score: mean over samples of sum_k (p_k - 1[y = k])^2 (Brier, 1950)."""
+    onehot = np.zeros_like(proba)
+    onehot[np.arange(len(y_true)), y_true] = 1.0
+    return float(np.mean(np.sum((proba - onehot) ** 2, axis=1)))
+
+
+def adjacent_accuracy(y_true: np.ndarray, y_pred: np.ndarray, adjacency: np.ndarray) -> float:
+    """Share of samples predicted as the true class or a class the scheme lists as adjacent."""
+    if len(y_true) == 0:
+        return float("nan")
+    return float(np.mean(adjacency[y_true, y_pred]))
+
+
+def classification_metrics(y_true: np.ndarray, y_pred: np.ndarray, proba: np.ndarray | None,
+                           labels: list[str], adjacency: np.ndarray | None = None) -> dict[str, Any]:
+    """Accuracy, macro-F1, per-class precision/recall, confusion matrix, adjacent accuracy, Brier.
+
+    Macro-F1 averages over the classes present in ``y_true`` or ``y_pred`` (scikit-learn's
+    default label set), so a class absent from a well does not count as a zero.
+    """
+    out: dict[str, Any] = {"n_samples": int(len(y_true))}
+    if len(y_true) == 0:
+        return out | {"accuracy": None, "f1_macro": None}
+    k = np.arange(len(labels))
+    out["accuracy"] = float(accuracy_score(y_true, y_pred))
+    out["f1_macro"] = float(f1_score(y_true, y_pred, average="macro", zero_division=0))
+    prec, rec, f1, support = precision_recall_fscore_support(
+        y_true, y_pred, labels=k, zero_division=0)
+    out["per_class"] = {
+        labels[i]: {"precision": float(prec[i]), "recall": float(rec[i]), "f1": float(f1[i]),
+                    "support": int(support[i])}
+        for i in k
+    }
+    out["confusion_matrix"] = confusion_matrix(y_true, y_pred, labels=k).tolist()
+    if adjacency is not None:
+        out["adjacent_accuracy"] = adjacent_accuracy(y_true, y_pred, adjacency)
+    if proba is not None:
+        out["brier"] = brier_score(y_true, proba)
+    return out
+
+
+def labelled_runs(labels: np.ndarray) -> list[tuple[int, int]]:
+    """(start, stop) index pairs of contiguous runs with label >= 0."""
+    ok = np.concatenate([[False], labels >= 0, [False]])
+    edges = np.flatnonzero(np.diff(ok.astype(int)))
+    return list(zip(edges[::2], edges[1::2], strict=True))
+
+
+def true_surfaces(depth: np.ndarray, tracts: np.ndarray, rules: Any) -> list[Any]:
+    """Surfaces implied by interpreted tract labels (top-down arrays), per labelled run."""
+    out = []
+    for start, stop in labelled_runs(tracts):
+        path = tracts[start:stop][::-1]
+        post = np.eye(len(rules.states))[path]
+        out.extend(pick_surfaces(depth[start:stop][::-1], path, post, rules))
+    return out
+
+
+def match_surfaces(true: Iterable[Any], pred: Iterable[Any], kind: str, tolerance: float,
+                   depth_range: tuple[float, float] | None = None) -> dict[str, Any]:
+    """Greedy nearest matching of predicted to true surfaces of one kind.
+
+    Returns absolute depth errors of matched pairs, and counts of missed (true without a
+    prediction within ``tolerance``) and extra (prediction inside ``depth_range`` without a
+    true surface) surfaces.
+    """
+    t = sorted(s.depth for s in true if s.kind == kind)
+    p = [s.depth for s in pred if s.kind == kind]
+    if depth_range is not None:
+        p = [d for d in p if depth_range[0] - tolerance <= d <= depth_range[1] + tolerance]
+    used: set[int] = set()
+    errors, missed = [], 0
+    for d in t:
+        cands = [(abs(d - q), j) for j, q in enumerate(p) if j not in used and abs(d - q) <= tolerance]
+        if not cands:
+            missed += 1
+            continue
+        err, j = min(cands)
+        used.add(j)
+        errors.append(float(err))
+    return {"errors": errors, "missed": missed, "extra": len(p) - len(used), "n_true": len(t)}
+
+
+def _median(values: list[float]) -> float | None:
+    return float(np.median(values)) if values else None
+
+
+def score_well(pred: WellPrediction, labels: pd.DataFrame, pipeline: FaciesPipeline) -> dict[str, Any]:
+    """All per-well metrics of one held-out prediction against its core labels."""
+    cfg = pipeline.config
+    table = pred.table
+    lab = labels.reindex(table.index)
+    yf = lab["lithofacies"].fillna(-1).to_numpy(int)
+    has_f = yf >= 0
+    facies_labels = cfg.facies.labels
+    proba = table[[f"p_{x}" for x in facies_labels]].to_numpy()
+    adjacency = np.asarray(cfg.facies.adjacency_matrix(), dtype=bool)
+    lith = classification_metrics(yf[has_f], table["lithofacies"].to_numpy(int)[has_f],
+                                  proba[has_f], facies_labels, adjacency)
+    out: dict[str, Any] = {
+        "lithofacies_accuracy": lith.get("accuracy"),
+        "lithofacies_f1_macro": lith.get("f1_macro"),
+        "lithofacies": lith,
+        "model_used": pred.model_used,
+        "out_of_range_fraction": pred.out_of_range_fraction,
+        "rule_violations": pred.rule_violations,
+        "rule_violations_raw": pred.rule_violations_raw,
+    }
+    if "systems_tract" in table and pipeline.tract_model_ is not None:
+        tract_map = pipeline._tract_index_map()
+        yt_raw = lab["systems_tract"].fillna(-1).to_numpy(int)
+        yt = np.where(yt_raw >= 0, tract_map[np.clip(yt_raw, 0, None)], -1)
+        has_t = yt >= 0
+        smoothed = table["systems_tract"].to_numpy(int)
+        raw = table["systems_tract_raw"].to_numpy(int)
+        if has_t.any():
+            out["systems_tract_accuracy"] = float(accuracy_score(yt[has_t], smoothed[has_t]))
+            out["systems_tract_accuracy_raw"] = float(accuracy_score(yt[has_t], raw[has_t]))
+            depth = table.index.to_numpy(float)
+            truth = true_surfaces(depth, yt, pipeline.rules_)
+            drange = (float(depth[has_t].min()), float(depth[has_t].max()))
+            tol = float(cfg.section("evaluation").get("surface_match_tolerance", 15.0))
+            for kind in ("MFS", "SB"):
+                m = match_surfaces(truth, pred.surfaces, kind, tol, drange)
+                key = kind.lower()
+                out[f"{key}_depth_error"] = _median(m["errors"])
+                out[f"{key}_errors"] = m["errors"]
+                out[f"{key}_missed"] = m["missed"]
+                out[f"{key}_extra"] = m["extra"]
+                out[f"{key}_true_count"] = m["n_true"]
+            target = [pipeline.tract_names_.index(t) for t in ("TST", "EHST")
+                      if t in pipeline.tract_names_]
+            step = float(np.median(np.diff(depth))) if len(depth) > 1 else cfg.step
+            thick_true = float(np.isin(yt[has_t], target).sum() * step)
+            thick_pred = float(np.isin(smoothed[has_t], target).sum() * step)
+            out["tst_ehst_thickness_true"] = thick_true
+            out["tst_ehst_thickness_error"] = thick_pred - thick_true
+    for key in PER_WELL_KEYS:
+        out.setdefault(key, None)
+    return out
+
+
+def overall_metrics(per_well: dict[str, dict[str, Any]], pooled: dict[str, Any]) -> dict[str, Any]:
+    """Pooled sample metrics plus medians/sums of surface errors and violations over wells."""
+    out = dict(pooled)
+    for kind in ("mfs", "sb"):
+        errs = [e for m in per_well.values() for e in m.get(f"{kind}_errors", [])]
+        out[f"{kind}_depth_error"] = _median(errs)
+        out[f"{kind}_missed"] = int(sum(m.get(f"{kind}_missed", 0) or 0 for m in per_well.values()))
+        out[f"{kind}_extra"] = int(sum(m.get(f"{kind}_extra", 0) or 0 for m in per_well.values()))
+    for key in ("rule_violations", "rule_violations_raw"):
+        out[key] = int(sum(m.get(key) or 0 for m in per_well.values()))
+    thick = [m["tst_ehst_thickness_error"] for m in per_well.values()
+             if m.get("tst_ehst_thickness_error") is not None]
+    out["tst_ehst_thickness_error_mean_abs"] = float(np.mean(np.abs(thick))) if thick else None
+    out["n_wells"] = len(per_well)
+    return out
+
+
+def leave_one_well_out(
+    wells: list[Well],
+    labels: dict[str, pd.DataFrame],
+    config: Config,
+    progress: Callable[[str], None] | None = None,
+) -> tuple[dict[str, Any], dict[str, WellPrediction]]:
+    """Refit the whole pipeline without each cored well and score it on that well.
+
+    Returns ``(metrics, predictions)`` where metrics is
+    ``{"wells": {name: {...}}, "overall": {...}}``.
+    """
+    cored = [w for w in wells if w.name in labels]
+    if len(cored) < 2:
+        from facies_ml.errors import InputError
+
+        raise InputError(f"leave-one-well-out needs at least 2 cored wells, found {len(cored)}")
+    per_well: dict[str, dict[str, Any]] = {}
+    predictions: dict[str, WellPrediction] = {}
+    pooled_f_true, pooled_f_pred, pooled_t_true, pooled_t_pred, pooled_t_raw = [], [], [], [], []
+    for held in cored:
+        if progress:
+            progress(f"fold: holding out {held.name}")
+        train = [w for w in cored if w.name != held.name]
+        pipe = FaciesPipeline(config).fit(train, {w.name: labels[w.name] for w in train})
+        pred = pipe.predict_well(held)
+        m = score_well(pred, labels[held.name], pipe)
+        per_well[held.name] = m
+        predictions[held.name] = pred
+        lab = labels[held.name].reindex(pred.table.index)
+        yf = lab["lithofacies"].fillna(-1).to_numpy(int)
+        pooled_f_true.append(yf[yf >= 0])
+        pooled_f_pred.append(pred.table["lithofacies"].to_numpy(int)[yf >= 0])
+        if "systems_tract" in pred.table:
+            tract_map = pipe._tract_index_map()
+            yt = lab["systems_tract"].fillna(-1).to_numpy(int)
+            ok = yt >= 0
+            pooled_t_true.append(tract_map[yt[ok]])
+            pooled_t_pred.append(pred.table["systems_tract"].to_numpy(int)[ok])
+            pooled_t_raw.append(pred.table["systems_tract_raw"].to_numpy(int)[ok])
+    yf_t, yf_p = np.concatenate(pooled_f_true), np.concatenate(pooled_f_pred)
+    pooled: dict[str, Any] = {
+        "lithofacies_accuracy": float(accuracy_score(yf_t, yf_p)),
+        "lithofacies_f1_macro": float(f1_score(yf_t, yf_p, average="macro", zero_division=0)),
+    }
+    if pooled_t_true:
+        tt = np.concatenate(pooled_t_true)
+        pooled["systems_tract_accuracy"] = float(accuracy_score(tt, np.concatenate(pooled_t_pred)))
+        pooled["systems_tract_accuracy_raw"] = float(
+            accuracy_score(tt, np.concatenate(pooled_t_raw)))
+    metrics = {"wells": per_well, "overall": overall_metrics(per_well, pooled)}
+    return metrics, predictions
+
+
+def format_table(metrics: dict[str, Any]) -> str:
+    """Plain-text per-well table of the headline held-out scores."""
+    cols = [("lithofacies_accuracy", "facies_acc"), ("lithofacies_f1_macro", "facies_F1"),
+            ("systems_tract_accuracy_raw", "tract_raw"), ("systems_tract_accuracy", "tract_hmm"),
+            ("mfs_depth_error", "MFS_err"), ("sb_depth_error", "SB_err"),
+            ("rule_violations_raw", "viol_raw"), ("rule_violations", "viol")]
+    head = f"{'well':<12}" + "".join(f"{short:>11}" for _, short in cols)
+    lines = [head, "-" * len(head)]
+
+    def fmt(v: Any) -> str:
+        if v is None:
+            return f"{'-':>11}"
+        if isinstance(v, (int, np.integer)):
+            return f"{v:>11d}"
+        return f"{v:>11.3f}"
+
+    rows = list(metrics["wells"].items()) + [("OVERALL", metrics["overall"])]
+    for name, m in rows:
+        lines.append(f"{name:<12}" + "".join(fmt(m.get(key)) for key, _ in cols))
+    return "\n".join(lines)

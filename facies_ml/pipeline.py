@@ -1,0 +1,210 @@
+"""The end-to-end model: fit on cored key wells, predict any offset well.
+
+Flow for one well: conditioned curves (``facies_ml.wells``) -> features (``facies_ml.features``)
+-> lithofacies probabilities (LightGBM, ``facies_ml.lithofacies``) -> systems-tract classifier
+posteriors turned into scaled likelihoods (posterior / prior, Bourlard & Morgan 1994) -> HMM
+decoding **up-section** under the rule table with minimum thicknesses (``facies_ml.sequence``)
+-> surfaces (SB, MFS with p10-p90 depth ranges).
+
+Every fitted piece (GR normalization reference, feature reference, both classifiers, the
+transition and thickness statistics, the applicability envelope) is learned from the wells
+passed to :meth:`FaciesPipeline.fit` only, so leave-one-well-out evaluation is honest.
+
+Predictions are probabilistic and must be reviewed by a qualified geoscientist.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from facies_ml.applicability import FeatureEnvelope
+from facies_ml.config import Config
+from facies_ml.errors import InputError
+from facies_ml.features import build_features, feature_reference
+from facies_ml.lithofacies import LithofaciesClassifier, SubsetModels
+from facies_ml.sequence import TractSequenceModel, load_rules, pick_surfaces
+from facies_ml.wells import GRNormalizer, Well
+
+UNLABELLED = -1
+
+
+@dataclass
+class WellPrediction:
+    """Prediction for one well; ``table`` is indexed by depth (working unit, top-down)."""
+
+    well: Well
+    table: pd.DataFrame
+    surfaces: list[Any]
+    model_used: str
+    out_of_range_fraction: float
+    rule_violations_raw: int
+    rule_violations: int
+    info: dict[str, Any] = field(default_factory=dict)
+
+
+def _lgbm_params(config: Config) -> dict[str, Any]:
+    params = config.section("lithofacies")
+    params.setdefault("random_state", config.seed)
+    return params
+
+
+class FaciesPipeline:
+    """Lithofacies + systems-tract model for one project configuration.
+
+    Parameters
+    ----------
+    config : the loaded project settings (``facies_ml.config.load_config``).
+    """
+
+    def __init__(self, config: Config) -> None:
+        self.config = config
+
+    # ------------------------------------------------------------------ fitting
+    def fit(self, wells: list[Well], labels: dict[str, pd.DataFrame]) -> FaciesPipeline:
+        """Fit every stage on ``wells`` using per-sample ``labels`` (from ``facies_ml.core``).
+
+        ``labels[name]`` has columns ``lithofacies`` and ``systems_tract`` (class indices,
+        -1 = unlabelled) on the well's depth index.
+        """
+        cfg = self.config
+        labelled = [w for w in wells if w.name in labels]
+        if not labelled:
+            raise InputError("no training well has core labels; check the core file's well names")
+        norm = cfg.section("intake").get("gr_normalization", {})
+        self.gr_normalizer_ = None
+        if norm.get("enabled", True):
+            self.gr_normalizer_ = GRNormalizer(norm.get("low_percentile", 5),
+                                               norm.get("high_percentile", 95)).fit(labelled)
+            labelled = [self.gr_normalizer_.transform(w) for w in labelled]
+        settings = cfg.section("features")
+        self.feature_reference_ = feature_reference([w.curves for w in labelled], settings)
+        frames, y_facies, y_tract, groups = [], [], [], []
+        for w in labelled:
+            X = build_features(w.curves, w.step, settings, self.feature_reference_)
+            lab = labels[w.name].reindex(X.index)
+            frames.append(X)
+            y_facies.append(lab["lithofacies"].fillna(UNLABELLED).to_numpy(int))
+            y_tract.append(lab["systems_tract"].fillna(UNLABELLED).to_numpy(int))
+            groups.append(np.full(len(X), w.name, dtype=object))
+        X_all = pd.concat(frames, axis=0, ignore_index=True, sort=False)
+        self.feature_names_ = list(X_all.columns)
+        yf = np.concatenate(y_facies)
+        yt = np.concatenate(y_tract)
+        g = np.concatenate(groups)
+        n_facies = len(cfg.facies.classes)
+        has_f = yf >= 0
+        if has_f.sum() == 0:
+            raise InputError("the core file gives no lithofacies labels inside the logged intervals")
+        params = _lgbm_params(cfg)
+        self.facies_model_ = LithofaciesClassifier(**params).fit(
+            X_all[has_f], yf[has_f], groups=g[has_f], n_classes=n_facies)
+        self.subset_models_ = SubsetModels(
+            lambda: LithofaciesClassifier(**params), X_all[has_f], yf[has_f], g[has_f],
+            n_classes=n_facies)
+
+        self.rules_ = load_rules(cfg.path("sequence_rules"))
+        self.tract_names_ = list(self.rules_.states)
+        tract_map = self._tract_index_map()
+        yt = np.where(yt >= 0, tract_map[np.clip(yt, 0, None)], UNLABELLED)
+        has_t = yt >= 0
+        self.tract_model_ = None
+        self.sequence_model_ = None
+        if has_t.sum() > 0:
+            tract_params = dict(params, class_weight=None)
+            self.tract_model_ = LithofaciesClassifier(**tract_params).fit(
+                X_all[has_t], yt[has_t], groups=g[has_t], n_classes=len(self.tract_names_))
+            self.tract_subset_models_ = SubsetModels(
+                lambda: LithofaciesClassifier(**tract_params), X_all[has_t], yt[has_t], g[has_t],
+                n_classes=len(self.tract_names_))
+            counts = np.bincount(yt[has_t], minlength=len(self.tract_names_)).astype(float)
+            self.tract_prior_ = (counts + 1.0) / (counts + 1.0).sum()
+            seqs, start = [], 0
+            for part in y_tract:
+                part_mapped = yt[start:start + len(part)]
+                start += len(part)
+                seqs.append(part_mapped[::-1].copy())  # up-section: deepest sample first
+            seq_cfg = cfg.section("sequence")
+            self.sequence_model_ = TractSequenceModel(
+                self.rules_, prior_count=float(seq_cfg.get("prior_count", 1.0)),
+                emission_weight=float(seq_cfg.get("emission_weight", 1.0)),
+            ).fit(seqs, step=cfg.step, depth_unit=cfg.working_unit)
+        self.envelope_ = FeatureEnvelope().fit(X_all)
+        self.training_wells_ = [w.name for w in labelled]
+        return self
+
+    def _tract_index_map(self) -> np.ndarray:
+        """Map a core-file tract index (scheme order) to the rule-table state index."""
+        out = []
+        for name in self.config.facies.systems_tracts:
+            if name not in self.tract_names_:
+                raise InputError(f"systems tract {name!r} of the facies scheme is not a state of "
+                                 "the sequence rule table", file=str(self.config.path("sequence_rules")))
+            out.append(self.tract_names_.index(name))
+        return np.asarray(out, dtype=int)
+
+    # --------------------------------------------------------------- prediction
+    def predict_well(self, well: Well) -> WellPrediction:
+        """Predict lithofacies and systems tracts for one conditioned well."""
+        cfg = self.config
+        if well.depth_unit != cfg.working_unit:
+            raise InputError(f"well is in {well.depth_unit}, the model works in {cfg.working_unit}",
+                             well=well.name)
+        if self.gr_normalizer_ is not None:
+            well = self.gr_normalizer_.transform(well)
+        X = build_features(well.curves, well.step, cfg.section("features"), self.feature_reference_)
+        missing = [f for f in self.feature_names_ if f not in X.columns]
+        if missing:
+            model, model_name = self.subset_models_.model_for(
+                [f for f in self.feature_names_ if f in X.columns])
+        else:
+            model, model_name = self.facies_model_, "full"
+        Xm = X.reindex(columns=model.feature_names_in_)
+        proba = model.predict_proba(Xm)
+        labels = cfg.facies.labels
+        table = pd.DataFrame(index=X.index)
+        table.index.name = "depth"
+        facies_idx = proba.argmax(axis=1)
+        table["lithofacies"] = facies_idx
+        table["lithofacies_label"] = np.asarray(labels, dtype=object)[facies_idx]
+        table["lithofacies_code"] = np.asarray(cfg.facies.codes)[facies_idx]
+        for k, lab in enumerate(labels):
+            table[f"p_{lab}"] = proba[:, k]
+        out_flag = self.envelope_.flag(X.reindex(columns=self.feature_names_))
+        table["out_of_range"] = out_flag
+        surfaces: list[Any] = []
+        viol_raw = viol = 0
+        if self.tract_model_ is not None and self.sequence_model_ is not None:
+            tract_model = self.tract_model_
+            if missing:
+                tract_model, _ = self.tract_subset_models_.model_for(
+                    [f for f in self.feature_names_ if f in X.columns])
+            tract_X = X.reindex(columns=tract_model.feature_names_in_)
+            tract_post = np.clip(tract_model.predict_proba(tract_X), 1e-9, 1.0)
+            raw_path = tract_post.argmax(axis=1)
+            loglik = np.log(tract_post) - np.log(self.tract_prior_)[None, :]
+            result = self.sequence_model_.decode(loglik[::-1])  # decode up-section
+            path = result.path[::-1]
+            post = result.posterior[::-1]
+            names = np.asarray(self.tract_names_, dtype=object)
+            table["systems_tract_raw"] = raw_path
+            table["systems_tract"] = path
+            table["systems_tract_label"] = names[path]
+            for k, name in enumerate(self.tract_names_):
+                table[f"p_{name}"] = post[:, k]
+            gr = well.curves["gr_api"].to_numpy(float) if "gr_api" in well.curves else None
+            surfaces = pick_surfaces(
+                X.index.to_numpy(float)[::-1], result.path, result.posterior, self.rules_,
+                gr=None if gr is None else gr[::-1],
+                mfs_gr_window=float(cfg.section("sequence").get("mfs_gr_window", 20.0)))
+            viol_raw = int(self.rules_.count_violations(raw_path[::-1]))
+            viol = int(self.rules_.count_violations(result.path))
+        return WellPrediction(
+            well=well, table=table, surfaces=surfaces, model_used=model_name,
+            out_of_range_fraction=float(np.mean(out_flag)) if len(out_flag) else 0.0,
+            rule_violations_raw=viol_raw, rule_violations=viol,
+            info={"features_missing": missing},
+        )

@@ -1,0 +1,150 @@
+"""Files a user acts on: per-well prediction tables (CSV, LAS 2.0), the tops table, metrics.
+
+Every file is written to a temporary name and renamed into place, so an interrupted run never
+leaves a partially written output. Every file carries the caution that predictions are
+probabilistic and must be reviewed by a qualified geoscientist.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import lasio
+import numpy as np
+import pandas as pd
+
+from facies_ml import CAUTION, __version__
+from facies_ml.pipeline import WellPrediction
+
+
+def atomic_write(path: str | Path, write: Callable[[Path], None]) -> Path:
+    """Call ``write(tmp_path)`` then rename the temporary file onto ``path``."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    os.close(fd)
+    try:
+        write(Path(tmp))
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+    return path
+
+
+def write_json(path: str | Path, data: Any) -> Path:
+    def _w(tmp: Path) -> None:
+        tmp.write_text(json.dumps(data, indent=2, sort_keys=False, default=_json_default) + "\n")
+
+    return atomic_write(path, _w)
+
+
+def _json_default(obj: Any) -> Any:
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.floating):
+        return None if np.isnan(obj) else float(obj)
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    return str(obj)
+
+
+def prediction_frame(pred: WellPrediction) -> pd.DataFrame:
+    """Conditioned input curves plus predictions, with depth in working and original units."""
+    well = pred.well
+    frame = pd.concat([well.curves, pred.table], axis=1)
+    frame.insert(0, f"depth_{well.original_depth_unit}_original",
+                 np.round(well.to_original_depth(frame.index.to_numpy(float)), 4))
+    frame.index.name = f"depth_{well.depth_unit}"
+    return frame
+
+
+def tops_frame(predictions: list[WellPrediction]) -> pd.DataFrame:
+    """One row per predicted surface: well, surface, depth, depth_p10, depth_p90, confidence."""
+    rows = []
+    for pred in predictions:
+        for s in pred.surfaces:
+            rows.append({
+                "well": pred.well.name, "surface": s.kind, "depth": round(float(s.depth), 3),
+                "depth_p10": round(float(s.depth_p10), 3), "depth_p90": round(float(s.depth_p90), 3),
+                "confidence": round(float(s.confidence), 3),
+                "gr_check": s.gr_check, "depth_unit": pred.well.depth_unit,
+            })
+    cols = ["well", "surface", "depth", "depth_p10", "depth_p90", "confidence", "gr_check",
+            "depth_unit"]
+    return pd.DataFrame(rows, columns=cols)
+
+
+def write_prediction_csv(pred: WellPrediction, path: str | Path) -> Path:
+    frame = prediction_frame(pred)
+
+    def _w(tmp: Path) -> None:
+        with open(tmp, "w") as fh:
+            fh.write(f"# facies_ml {__version__} prediction for well {pred.well.name}. {CAUTION}\n")
+            frame.to_csv(fh, float_format="%.5g")
+
+    return atomic_write(path, _w)
+
+
+def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: list[int],
+                         facies_labels: list[str], tract_names: list[str]) -> Path:
+    """LAS 2.0 with input curves and predicted codes/probabilities; depth in the original unit.
+
+    The code-to-label mapping is written as ~Parameter entries and in ~Other with the caution.
+    """
+    frame = prediction_frame(pred)
+    well = pred.well
+    las = lasio.LASFile()
+    las.well["WELL"].value = well.name
+    las.well["NULL"].value = -999.25
+    las.other = (f"Written by facies_ml {__version__}. {CAUTION} "
+                 "Lithofacies codes: " + ", ".join(f"{c}={lab}" for c, lab in
+                                                   zip(facies_codes, facies_labels, strict=True))
+                 + ". Systems tract codes: " + ", ".join(f"{i + 1}={t}" for i, t in
+                                                         enumerate(tract_names)) + ".")
+    depth = frame.iloc[:, 0].to_numpy(float)
+    las.append_curve("DEPT", depth, unit=well.original_depth_unit.upper(), descr="depth")
+    for role in well.roles:
+        las.append_curve(role.upper()[:16], frame[role].to_numpy(float), descr=f"conditioned {role}")
+    las.append_curve("LITHO_CODE", frame["lithofacies_code"].to_numpy(float),
+                     descr="predicted lithofacies code (see ~Parameter)")
+    for lab in facies_labels:
+        las.append_curve(f"P_{lab}"[:16], frame[f"p_{lab}"].to_numpy(float),
+                         descr=f"probability of {lab}")
+    if "systems_tract" in frame:
+        las.append_curve("TRACT_CODE", frame["systems_tract"].to_numpy(float) + 1,
+                         descr="predicted systems tract code (see ~Parameter)")
+        for name in tract_names:
+            las.append_curve(f"P_{name}"[:16], frame[f"p_{name}"].to_numpy(float),
+                             descr=f"posterior probability of {name}")
+    las.append_curve("OUT_OF_RANGE", frame["out_of_range"].to_numpy(float),
+                     descr="1 = features outside the training envelope")
+    for code, lab in zip(facies_codes, facies_labels, strict=True):
+        las.params.append(lasio.HeaderItem(f"LITH{code}", "", lab, "lithofacies code"))
+    for i, name in enumerate(tract_names):
+        las.params.append(lasio.HeaderItem(f"TRACT{i + 1}", "", name, "systems tract code"))
+
+    def _w(tmp: Path) -> None:
+        with open(tmp, "w") as fh:
+            las.write(fh, version=2.0, wrap=False, fmt="%.5f")
+
+    return atomic_write(path, _w)
+
+
+def write_tops(predictions: list[WellPrediction], path: str | Path) -> Path:
+    frame = tops_frame(predictions)
+
+    def _w(tmp: Path) -> None:
+        with open(tmp, "w") as fh:
+            fh.write(f"# facies_ml predicted surfaces. {CAUTION}\n")
+            frame.to_csv(fh, index=False)
+
+    return atomic_write(path, _w)
