@@ -271,3 +271,83 @@ def format_table(metrics: dict[str, Any]) -> str:
     for name, m in rows:
         lines.append(f"{name:<12}" + "".join(fmt(m.get(key)) for key, _ in cols))
     return "\n".join(lines)
+
+
+def learning_curve(
+    wells: list[Well],
+    labels: dict[str, pd.DataFrame],
+    config: Config,
+    repeats: int | None = None,
+    sizes: list[int] | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> pd.DataFrame:
+    """Held-out scores against the number of training wells (how many cores do we need?).
+
+    For each size n, ``repeats`` random subsets of n cored wells (seeded by the project seed)
+    are trained on and scored on every cored well outside the subset. Returns one row per
+    (size, repeat) with mean lithofacies macro-F1 and systems-tract accuracy over the
+    held-out wells.
+    """
+    cored = [w for w in wells if w.name in labels]
+    if len(cored) < 2:
+        from facies_ml.errors import InputError
+
+        raise InputError("a learning curve needs at least 2 cored wells")
+    repeats = repeats or int(config.section("evaluation").get("learning_curve_repeats", 3))
+    sizes = sizes or list(range(1, len(cored)))
+    rng = np.random.default_rng(config.seed)
+    rows = []
+    for n in sizes:
+        for r in range(repeats):
+            pick = sorted(rng.choice(len(cored), size=n, replace=False).tolist())
+            train = [cored[i] for i in pick]
+            test = [w for i, w in enumerate(cored) if i not in pick]
+            if progress:
+                progress(f"learning curve: {n} training wells, repeat {r + 1}")
+            pipe = FaciesPipeline(config).fit(train, {w.name: labels[w.name] for w in train})
+            scores = [score_well(pipe.predict_well(w), labels[w.name], pipe) for w in test]
+            f1 = [s["lithofacies_f1_macro"] for s in scores if s["lithofacies_f1_macro"] is not None]
+            ta = [s["systems_tract_accuracy"] for s in scores
+                  if s["systems_tract_accuracy"] is not None]
+            rows.append({"n_training_wells": n, "repeat": r + 1,
+                         "training_wells": ",".join(w.name for w in train),
+                         "lithofacies_f1_macro": float(np.mean(f1)) if f1 else None,
+                         "systems_tract_accuracy": float(np.mean(ta)) if ta else None,
+                         "n_test_wells": len(test)})
+    return pd.DataFrame(rows)
+
+
+def rank_core_candidates(predictions: list[WellPrediction], facies_labels: list[str],
+                         target_tracts: tuple[str, ...] = ("TST", "EHST")) -> pd.DataFrame:
+    """Rank uncored wells by how much a core there would teach the model.
+
+    Score = mean normalized predictive entropy of the lithofacies probabilities over the
+    predicted target interval (TST + EHST; whole well if none is predicted) + the share of
+    samples outside the training envelope. Entropy is divided by log(K) so it lies in 0..1.
+    """
+    rows = []
+    for p in predictions:
+        t = p.table
+        proba = t[[f"p_{lab}" for lab in facies_labels]].to_numpy(float)
+        k = proba.shape[1]
+        ent = -np.sum(np.where(proba > 0, proba * np.log(np.clip(proba, 1e-12, 1)), 0), axis=1)
+        ent = ent / np.log(k)
+        target = np.ones(len(t), dtype=bool)
+        if "systems_tract_label" in t:
+            in_target = np.isin(t["systems_tract_label"].to_numpy(), list(target_tracts))
+            if in_target.any():
+                target = in_target
+        oor = float(np.mean(t["out_of_range"].to_numpy(bool)[target]))
+        mean_ent = float(np.mean(ent[target]))
+        reasons = [f"mean facies entropy {mean_ent:.2f} over {int(target.sum())} target samples",
+                   f"{oor:.1%} of target samples outside the training envelope"]
+        if p.model_used != "full":
+            reasons.append(f"served by a reduced-curve model ({p.model_used})")
+        rows.append({"well": p.well.name, "score": mean_ent + oor, "mean_entropy": mean_ent,
+                     "out_of_range_fraction": oor, "model_used": p.model_used,
+                     "reasons": "; ".join(reasons)})
+    frame = pd.DataFrame(rows, columns=["well", "score", "mean_entropy", "out_of_range_fraction",
+                                        "model_used", "reasons"])
+    frame = frame.sort_values("score", ascending=False, kind="stable").reset_index(drop=True)
+    frame.insert(0, "rank", np.arange(1, len(frame) + 1))
+    return frame

@@ -2,7 +2,7 @@
 
 Layout of a model directory::
 
-    MODEL_DIR/registry.json            {"champion": "v003", "versions": ["v001", ...], "history": [...]}
+    MODEL_DIR/registry.json            {"champion": "v003", "versions": [...], "history": [...]}
     MODEL_DIR/v003/bundle.joblib       the fitted FaciesPipeline (joblib)
     MODEL_DIR/v003/manifest.json       version, time, training wells + SHA-256 of their files,
                                        config + hash, features, package versions, metrics,
@@ -32,7 +32,9 @@ from facies_ml import __version__
 from facies_ml.errors import ModelStoreError
 
 MANIFEST_FORMAT = "facies_ml.bundle/1"
-TRACKED_PACKAGES = ("facies_ml", "numpy", "pandas", "scikit-learn", "lightgbm", "hmmlearn", "joblib")
+TRACKED_PACKAGES = (
+    "facies_ml", "numpy", "pandas", "scikit-learn", "lightgbm", "hmmlearn", "joblib",
+)
 STRICT_PACKAGES = ("scikit-learn", "lightgbm", "numpy")  # must match major.minor to load
 
 
