@@ -173,6 +173,10 @@ class FaciesPipeline:
         table["lithofacies_code"] = np.asarray(cfg.facies.codes)[facies_idx]
         for k, lab in enumerate(labels):
             table[f"p_{lab}"] = proba[:, k]
+        for col in ("toc_passey_density", "toc_passey_sonic"):
+            if col in X:
+                table["organic_proxy_toc_wt_pct"] = X[col].to_numpy(float)
+                break
         out_flag = self.envelope_.flag(X.reindex(columns=self.feature_names_))
         table["out_of_range"] = out_flag
         surfaces: list[Any] = []
