@@ -14,15 +14,21 @@ from typing import Any
 
 import pandas as pd
 
+from facies_ml import CAUTION
+from facies_ml.batch import WellResult, list_well_files, run_batch
 from facies_ml.config import Config, load_config
 from facies_ml.core import align_core_labels, read_core_gamma, read_core_intervals
 from facies_ml.errors import InputError
 from facies_ml.evaluation import leave_one_well_out
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
+from facies_ml.report.landing import landing_summary
 from facies_ml.report.outputs import (
+    tops_frame,
     write_json,
     write_prediction_csv,
     write_prediction_las,
+    write_prediction_parquet,
+    write_table,
     write_tops,
 )
 from facies_ml.store import load_version, read_registry, save_version
@@ -107,26 +113,87 @@ def train(wells_path: str | Path, core_path: str | Path, model_dir: str | Path,
 
 
 def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
-            version: str | None = None, progress: Progress = None) -> dict[str, Any]:
+            version: str | None = None, n_jobs: int = 1, scheduler: str | None = None,
+            plots: bool = False, progress: bool = True) -> dict[str, Any]:
     """Predict every well under ``wells_path`` with the champion (or ``version``).
 
     One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason.
-    Writes ``<well>.csv``, ``<well>.las``, ``tops.csv``, ``summary.json`` in ``out_dir``.
+    Writes per well ``<well>.las|.csv|.parquet``; for all wells ``tops.csv``,
+    ``landing_zones.csv``, ``failures.csv``, ``summary.json`` (and with ``plots`` a well
+    section per well, a correlation panel and ``report.html``). ``n_jobs`` > 1 uses local
+    cores (joblib); ``scheduler`` sends the work to a Dask cluster at that address.
     """
     pipe, manifest = load_version(model_dir, version)
-    cfg = pipe.config
-    wells, failures = read_wells(Path(wells_path), cfg, on_error="collect")
     out_dir = Path(out_dir)
-    preds = predict_wells(pipe, wells, failures, progress)
-    summary = write_predictions(pipe, preds, failures, out_dir)
+    files = list_well_files(wells_path)
+    rows = run_batch(pipe, files, out_dir, n_jobs=n_jobs, scheduler=scheduler,
+                     progress=progress, keep_predictions=plots)
+    preds = [r[1] for r in rows if isinstance(r, tuple)]
+    results = [r[0] if isinstance(r, tuple) else r for r in rows]
+    summary = write_batch_tables(results, out_dir)
     summary["model_version"] = manifest["version"]
+    if plots and preds:
+        summary["figures"] = write_figures(pipe, preds, out_dir)
     write_json(out_dir / "summary.json", summary)
     return summary
 
 
+def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, Any]:
+    """tops.csv, landing_zones.csv, failures.csv from the batch results; returns the summary."""
+    ok = [r for r in results if r.failure is None]
+    failures = [{"well": r.well, "file": r.file, "reason": r.failure}
+                for r in results if r.failure is not None]
+    write_tops([(r.well, r.depth_unit, r.surfaces) for r in ok], out_dir / "tops.csv")
+    landing = pd.DataFrame([row for r in ok for row in r.landing])
+    write_table(landing, out_dir / "landing_zones.csv", f"facies_ml landing-zone summary. {CAUTION}")
+    write_table(pd.DataFrame(failures, columns=["well", "file", "reason"]),
+                out_dir / "failures.csv")
+    return {
+        "wells": {r.well: {"file": r.file, "model_used": r.model_used,
+                           "out_of_range_fraction": round(r.out_of_range_fraction, 4),
+                           "surfaces": len(r.surfaces), "rule_violations": r.rule_violations,
+                           "intake": r.intake} for r in ok},
+        "failures": failures,
+        "caution": CAUTION,
+    }
+
+
+def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Path,
+                  core_labels: dict[str, pd.DataFrame] | None = None,
+                  extra_sections: list[tuple[str, list[str]]] | None = None) -> dict[str, str]:
+    """A well section per well, one correlation panel, and the self-contained report.html."""
+    from facies_ml.report.html import image_tag, table_html, write_report
+    from facies_ml.report.plots import Style, correlation_panel, well_section
+
+    cfg = pipe.config
+    style = Style(cfg.path("plot_style"))
+    fig_dir = out_dir / "figures"
+    tracts = list(getattr(pipe, "tract_names_", []))
+    figures: dict[str, str] = {}
+    sections: list[tuple[str, list[str]]] = list(extra_sections or [])
+    well_imgs = []
+    for p in preds:
+        path = well_section(p, cfg.facies.labels, tracts, style, fig_dir / f"{p.well.name}_section.png",
+                            core_labels=(core_labels or {}).get(p.well.name))
+        figures[p.well.name] = str(path)
+        well_imgs.append(image_tag(path, f"well section {p.well.name}"))
+    panel = correlation_panel(preds, tracts, style, fig_dir / "correlation_panel.png")
+    figures["correlation_panel"] = str(panel)
+    landing = pd.concat([landing_summary(p, cfg.section("landing")) for p in preds],
+                        ignore_index=True)
+    tops = tops_frame([(p.well.name, p.well.depth_unit, p.surfaces) for p in preds])
+    sections += [("Correlation panel", [image_tag(panel, "correlation panel")]),
+                 ("Landing-zone summary (TST + EHST target)", [table_html(landing)]),
+                 ("Predicted surfaces", [table_html(tops)]),
+                 ("Well sections", well_imgs)]
+    write_report(out_dir / "report.html", "facies_ml prediction report", sections)
+    figures["report"] = str(out_dir / "report.html")
+    return figures
+
+
 def predict_wells(pipe: FaciesPipeline, wells: list[Well], failures: list[dict[str, Any]],
                   progress: Progress = None) -> list[WellPrediction]:
-    """Predict each well; an :class:`InputError` moves the well to ``failures``."""
+    """Predict in-memory wells; an :class:`InputError` moves the well to ``failures``."""
     preds = []
     for w in wells:
         if progress:
@@ -140,26 +207,23 @@ def predict_wells(pipe: FaciesPipeline, wells: list[Well], failures: list[dict[s
 
 def write_predictions(pipe: FaciesPipeline, preds: list[WellPrediction],
                       failures: list[dict[str, Any]], out_dir: Path) -> dict[str, Any]:
+    """Per-well files and the batch tables for in-memory predictions (used by the demo)."""
     cfg = pipe.config
-    tract_names = list(getattr(pipe, "tract_names_", []))
-    summary: dict[str, Any] = {"wells": {}, "failures": failures}
+    tracts = list(getattr(pipe, "tract_names_", []))
+    results = []
     for p in preds:
         write_prediction_csv(p, out_dir / f"{p.well.name}.csv")
         write_prediction_las(p, out_dir / f"{p.well.name}.las", cfg.facies.codes,
-                             cfg.facies.labels, tract_names)
-        summary["wells"][p.well.name] = {
-            "model_used": p.model_used,
-            "out_of_range_fraction": round(p.out_of_range_fraction, 4),
-            "surfaces": len(p.surfaces),
-            "rule_violations": p.rule_violations,
-            "intake": p.well.intake,
-        }
-    write_tops(preds, out_dir / "tops.csv")
-    fail_frame = pd.DataFrame(failures, columns=["well", "file", "reason"])
-    from facies_ml.report.outputs import atomic_write
-
-    atomic_write(out_dir / "failures.csv", lambda tmp: fail_frame.to_csv(tmp, index=False))
-    return summary
+                             cfg.facies.labels, tracts)
+        write_prediction_parquet(p, out_dir / f"{p.well.name}.parquet")
+        results.append(WellResult(
+            well=p.well.name, file=p.well.source, model_used=p.model_used,
+            out_of_range_fraction=p.out_of_range_fraction, rule_violations=p.rule_violations,
+            surfaces=p.surfaces, depth_unit=p.well.depth_unit, intake=p.well.intake,
+            landing=landing_summary(p, cfg.section("landing")).to_dict("records")))
+    results += [WellResult(well=f.get("well") or "", file=f.get("file") or "",
+                           failure=f.get("reason")) for f in failures]
+    return write_batch_tables(results, out_dir)
 
 
 def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path,

@@ -58,6 +58,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--wells", required=True, help="folder of wells or one LAS/CSV file")
     p.add_argument("--out", required=True)
     p.add_argument("--version", dest="model_version", help="model version (default: champion)")
+    p.add_argument("--jobs", type=int, default=1, help="parallel processes on this machine")
+    p.add_argument("--scheduler", help="Dask scheduler address (e.g. tcp://host:8786) to run on")
+    p.add_argument("--plots", action="store_true",
+                   help="also draw a well section per well, a correlation panel and report.html")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
 
     p = sub.add_parser("retrain", help="champion/challenger retrain with new cored wells")
     p.add_argument("--model-dir", required=True)
@@ -101,7 +106,8 @@ def run(args: argparse.Namespace) -> int:
               f"in {args.model_dir}")
     elif args.command == "predict":
         summary = api.predict(args.model_dir, args.wells, args.out, args.model_version,
-                              progress=_progress)
+                              n_jobs=args.jobs, scheduler=args.scheduler, plots=args.plots,
+                              progress=not args.no_progress)
         print(f"predicted {len(summary['wells'])} wells with model {summary['model_version']}; "
               f"{len(summary['failures'])} failed (see failures.csv); outputs in {args.out}")
         for f in summary["failures"]:

@@ -10,7 +10,7 @@ from __future__ import annotations
 import json
 import os
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from pathlib import Path
 from typing import Any
 
@@ -67,20 +67,33 @@ def prediction_frame(pred: WellPrediction) -> pd.DataFrame:
     return frame
 
 
-def tops_frame(predictions: list[WellPrediction]) -> pd.DataFrame:
-    """One row per predicted surface: well, surface, depth, depth_p10, depth_p90, confidence."""
-    rows = []
-    for pred in predictions:
-        for s in pred.surfaces:
-            rows.append({
-                "well": pred.well.name, "surface": s.kind, "depth": round(float(s.depth), 3),
+def tops_frame(rows: Iterable[tuple[str, str, list[Any]]]) -> pd.DataFrame:
+    """One row per surface from ``(well, depth_unit, surfaces)`` triples:
+    well, surface, depth, depth_p10, depth_p90, confidence, gr_check, depth_unit."""
+    out = []
+    for well, unit, surfaces in rows:
+        for s in surfaces:
+            out.append({
+                "well": well, "surface": s.kind, "depth": round(float(s.depth), 3),
                 "depth_p10": round(float(s.depth_p10), 3), "depth_p90": round(float(s.depth_p90), 3),
-                "confidence": round(float(s.confidence), 3),
-                "gr_check": s.gr_check, "depth_unit": pred.well.depth_unit,
+                "confidence": round(float(s.confidence), 3), "gr_check": s.gr_check,
+                "depth_unit": unit,
             })
     cols = ["well", "surface", "depth", "depth_p10", "depth_p90", "confidence", "gr_check",
             "depth_unit"]
-    return pd.DataFrame(rows, columns=cols)
+    return pd.DataFrame(out, columns=cols)
+
+
+def write_table(frame: pd.DataFrame, path: str | Path, comment: str | None = None) -> Path:
+    """CSV with an optional leading ``# comment`` line (the caution), written atomically."""
+
+    def _w(tmp: Path) -> None:
+        with open(tmp, "w") as fh:
+            if comment:
+                fh.write(f"# {comment}\n")
+            frame.to_csv(fh, index=False)
+
+    return atomic_write(path, _w)
 
 
 def write_prediction_csv(pred: WellPrediction, path: str | Path) -> Path:
@@ -92,6 +105,20 @@ def write_prediction_csv(pred: WellPrediction, path: str | Path) -> Path:
             frame.to_csv(fh, float_format="%.5g")
 
     return atomic_write(path, _w)
+
+
+def write_prediction_parquet(pred: WellPrediction, path: str | Path) -> Path:
+    """Parquet copy of the prediction table; the caution is stored in the file metadata."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    frame = prediction_frame(pred).reset_index()
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    meta = dict(table.schema.metadata or {})
+    meta[b"facies_ml.caution"] = CAUTION.encode()
+    meta[b"facies_ml.well"] = pred.well.name.encode()
+    table = table.replace_schema_metadata(meta)
+    return atomic_write(path, lambda tmp: pq.write_table(table, tmp))
 
 
 def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: list[int],
@@ -139,12 +166,5 @@ def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: l
     return atomic_write(path, _w)
 
 
-def write_tops(predictions: list[WellPrediction], path: str | Path) -> Path:
-    frame = tops_frame(predictions)
-
-    def _w(tmp: Path) -> None:
-        with open(tmp, "w") as fh:
-            fh.write(f"# facies_ml predicted surfaces. {CAUTION}\n")
-            frame.to_csv(fh, index=False)
-
-    return atomic_write(path, _w)
+def write_tops(rows: Iterable[tuple[str, str, list[Any]]], path: str | Path) -> Path:
+    return write_table(tops_frame(rows), path, f"facies_ml predicted surfaces. {CAUTION}")
