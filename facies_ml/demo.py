@@ -15,9 +15,14 @@ import pandas as pd
 
 from facies_ml import CAUTION, api
 from facies_ml.config import load_config
-from facies_ml.evaluation import format_table, leave_one_well_out
+from facies_ml.evaluation import (
+    format_table,
+    learning_curve,
+    leave_one_well_out,
+    rank_core_candidates,
+)
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
-from facies_ml.report.outputs import write_json
+from facies_ml.report.outputs import write_json, write_table
 from facies_ml.store import save_version
 
 DEMO_WELLS = Path(__file__).resolve().parent.parent / "synthetic_wells"
@@ -40,6 +45,30 @@ def score_against_truth(pred: WellPrediction, truth_path: Path, facies_labels: l
         t_pred = table["systems_tract_label"].to_numpy()[idx[ok]]
         out["systems_tract_accuracy"] = float(np.mean(t_true == t_pred))
     return out
+
+
+def evaluation_sections(metrics: dict[str, Any], curve: pd.DataFrame, cfg: Any,
+                        out: Path) -> list[tuple[str, list[str]]]:
+    """Held-out evaluation figures (confusion matrix, learning curve) for the HTML report."""
+    from facies_ml.report.html import image_tag, table_html
+    from facies_ml.report.plots import Style, confusion_plot, learning_curve_plot
+
+    style = Style(cfg.path("plot_style"))
+    labels = cfg.facies.labels
+    k = len(labels)
+    cm = np.zeros((k, k), dtype=int)
+    for m in metrics["wells"].values():
+        cm += np.asarray(m["lithofacies"].get("confusion_matrix", np.zeros((k, k))), dtype=int)
+    fig_dir = out / "evaluation"
+    cm_path = confusion_plot(cm.tolist(), labels, style, fig_dir / "confusion_matrix.png")
+    lc_path = learning_curve_plot(curve, style, fig_dir / "learning_curve.png")
+    rows = [{"well": w, **{key: m.get(key) for key in (
+        "lithofacies_accuracy", "lithofacies_f1_macro", "systems_tract_accuracy_raw",
+        "systems_tract_accuracy", "mfs_depth_error", "sb_depth_error", "rule_violations")}}
+        for w, m in metrics["wells"].items()]
+    return [("Held-out evaluation (leave one well out)",
+             [table_html(pd.DataFrame(rows)), image_tag(cm_path, "confusion matrix"),
+              image_tag(lc_path, "learning curve")])]
 
 
 def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = None,
@@ -94,9 +123,28 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
               + (f"  tract acc vs truth {tacc:.3f}" if tacc is not None else ""))
     summary["truth_scores"] = scores
     summary["model_version"] = version
+
+    print("\n4) Where to core next (uncored wells ranked by what a core would teach the model):")
+    ranking = rank_core_candidates(preds, cfg.facies.labels)
+    write_table(ranking, out / "predictions" / "core_next_ranking.csv")
+    for row in ranking.itertuples():
+        print(f"  {row.rank}. {row.well:<8} score {row.score:.3f}: {row.reasons}")
+
+    print("\n5) Learning curve (held-out scores vs number of cored training wells):")
+    curve = learning_curve(project.cored, project.labels, cfg, repeats=2, progress=progress)
+    write_table(curve, out / "evaluation" / "learning_curve.csv")
+    agg = curve.groupby("n_training_wells")[["lithofacies_f1_macro", "systems_tract_accuracy"]]
+    for n, row in agg.mean().iterrows():
+        print(f"  {n} wells: facies macro-F1 {row['lithofacies_f1_macro']:.3f}, "
+              f"tract accuracy {row['systems_tract_accuracy']:.3f}")
+
+    figures = api.write_figures(pipe, preds, out / "predictions",
+                                extra_sections=evaluation_sections(metrics, curve, cfg, out))
+    summary["figures"] = figures
     write_json(out / "predictions" / "summary.json", summary)
     elapsed = time.perf_counter() - t0
-    print(f"\nOutputs in {out}/ (evaluation/metrics.json, models/, predictions/*.las|csv, "
-          f"predictions/tops.csv). Finished in {elapsed:.1f} s.")
+    print(f"\nOutputs in {out}/: evaluation/ (metrics.json, learning_curve.csv, figures), "
+          f"models/, predictions/ (<well>.las|csv|parquet, tops.csv, landing_zones.csv, "
+          f"core_next_ranking.csv, figures/, report.html). Finished in {elapsed:.1f} s.")
     print(CAUTION)
     return {"metrics": metrics, "truth_scores": scores, "elapsed_s": elapsed}
