@@ -1,0 +1,131 @@
+"""Log conditioning on plain arrays: nulls, spikes, resampling, bad hole, ranges.
+
+All depth arrays are increasing downward (top of the log first). None of these operations is
+stratigraphic, so none has an up-section direction; they are symmetric in depth.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+import numpy as np
+import pandas as pd
+
+MAD_TO_SIGMA = 1.4826  # MAD of a normal distribution times this is its standard deviation
+
+
+def to_numeric(values: Iterable[object]) -> tuple[np.ndarray, int]:
+    """Float array of ``values``; returns (array, number of non-blank cells that were not numbers)."""
+    s = pd.Series(list(values) if not isinstance(values, pd.Series | np.ndarray) else values)
+    if s.dtype.kind in "fiub":
+        return s.to_numpy(dtype=float), 0
+    as_text = s.astype("string").str.strip()
+    blank = s.isna() | (as_text == "") | as_text.isna()
+    out = pd.to_numeric(as_text.where(~blank), errors="coerce").to_numpy(dtype=float)
+    bad = int((np.isnan(out) & ~blank.to_numpy(dtype=bool)).sum())
+    return out, bad
+
+
+def replace_nulls(values: np.ndarray, nulls: Iterable[float]) -> tuple[np.ndarray, int]:
+    """Set sentinel null values (and +/-inf) to NaN; returns (copy, count of sentinels replaced)."""
+    out = np.array(values, dtype=float, copy=True)
+    mask = np.isinf(out)
+    for null in nulls:
+        null = float(null)
+        mask |= np.isclose(out, null, rtol=0.0, atol=1e-6 * max(1.0, abs(null)))
+    out[mask] = np.nan
+    return out, int(mask.sum())
+
+
+def despike(values: np.ndarray, window: int, threshold: float,
+            log_scale: bool = False) -> tuple[np.ndarray, int]:
+    """Set spikes to NaN: |x - centred rolling median| > threshold * sigma.
+
+    ``window`` is in samples. sigma is the robust noise level 1.4826 * MAD(first differences)
+    / sqrt(2) (the residuals from a rolling median are exactly zero along any monotonic run, so
+    their own MAD is no measure of noise). Steps between beds thicker than half the window are
+    kept; isolated excursions are removed. ``log_scale`` works on log10(x) (resistivity).
+    Returns (copy, number of spikes removed). Curves with zero noise level are left alone.
+    """
+    out = np.array(values, dtype=float, copy=True)
+    work = out.copy()
+    if log_scale:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            work = np.where(work > 0, np.log10(work), np.nan)
+    finite = np.isfinite(work)
+    if finite.sum() < max(3, window):
+        return out, 0
+    med = pd.Series(work).rolling(window, center=True, min_periods=1).median().to_numpy()
+    diffs = np.diff(work[finite])
+    sigma = MAD_TO_SIGMA * float(np.median(np.abs(diffs - np.median(diffs)))) / np.sqrt(2.0)
+    if not np.isfinite(sigma) or sigma <= 0:
+        return out, 0
+    with np.errstate(invalid="ignore"):
+        spikes = finite & (np.abs(work - med) > threshold * sigma)
+    out[spikes] = np.nan
+    return out, int(spikes.sum())
+
+
+def regular_grid(top: float, bottom: float, step: float) -> np.ndarray:
+    """Depths k*step (k integer) from the first multiple >= ``top`` to the last <= ``bottom``."""
+    k0 = int(np.ceil(top / step - 1e-9))
+    k1 = int(np.floor(bottom / step + 1e-9))
+    if k1 < k0:
+        return np.empty(0)
+    return np.round(np.arange(k0, k1 + 1) * step, 10)
+
+
+def resample(depth: np.ndarray, values: np.ndarray, grid: np.ndarray,
+             max_gap: float) -> np.ndarray:
+    """Linear interpolation of finite samples onto ``grid`` (same unit, increasing downward).
+
+    A grid point between two finite samples further apart than ``max_gap`` stays NaN, and so
+    does any point outside the curve's finite depth range. Exact depth hits keep their value.
+    """
+    ok = np.isfinite(values) & np.isfinite(depth)
+    d, v = depth[ok], values[ok]
+    out = np.full(grid.shape, np.nan)
+    if d.size == 0:
+        return out
+    if d.size == 1:
+        hit = np.isclose(grid, d[0], rtol=0.0, atol=1e-9)
+        out[hit] = v[0]
+        return out
+    out = np.interp(grid, d, v, left=np.nan, right=np.nan)
+    right = np.clip(np.searchsorted(d, grid, side="left"), 0, d.size - 1)
+    left = np.clip(right - 1, 0, d.size - 1)
+    exact = np.isclose(d[right], grid, rtol=0.0, atol=1e-9) | np.isclose(d[left], grid, rtol=0.0,
+                                                                         atol=1e-9)
+    gap = (d[right] - d[left]) > max_gap + 1e-9
+    out[gap & ~exact] = np.nan
+    return out
+
+
+def bad_hole_mask(cali_in: np.ndarray, bs_in: np.ndarray | None,
+                  excess_in: float) -> tuple[np.ndarray, str]:
+    """True where the caliper exceeds gauge by more than ``excess_in`` inches.
+
+    Gauge is the bit size where it is known, else the well's median caliper.
+    Returns (mask, description of the reference used).
+    """
+    cali = np.asarray(cali_in, dtype=float)
+    if bs_in is not None and np.isfinite(bs_in).any():
+        gauge = np.asarray(bs_in, dtype=float)
+        if not np.isfinite(gauge).all():  # fill bit size gaps from neighbours (it is piecewise constant)
+            gauge = pd.Series(gauge).ffill().bfill().to_numpy()
+        ref = "caliper - bit size"
+    else:
+        gauge = np.full(cali.shape, np.nanmedian(cali) if np.isfinite(cali).any() else np.nan)
+        ref = "caliper - median caliper"
+    with np.errstate(invalid="ignore"):
+        mask = (cali - gauge) > excess_in
+    return np.asarray(mask & np.isfinite(cali), dtype=bool), ref
+
+
+def out_of_range(values: np.ndarray, low: float, high: float) -> tuple[np.ndarray, int]:
+    """Set values outside [low, high] to NaN; returns (copy, count)."""
+    out = np.array(values, dtype=float, copy=True)
+    with np.errstate(invalid="ignore"):
+        mask = np.isfinite(out) & ((out < low) | (out > high))
+    out[mask] = np.nan
+    return out, int(mask.sum())

@@ -1,0 +1,136 @@
+"""LAS files (CWLS LAS 2.0; 1.2 and 3.0 where lasio reads them) -> :class:`RawWell`."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from facies_ml.config import Config
+from facies_ml.errors import InputError
+from facies_ml.wells import clean
+from facies_ml.wells.build import RawCurve, RawWell, alias_table
+
+
+def one_line(exc: BaseException) -> str:
+    """``ClassName: first line of the message`` (never multi-line)."""
+    text = str(exc).strip().splitlines()
+    first = text[0].strip() if text else ""
+    return f"{exc.__class__.__name__}: {first[:200]}" if first else exc.__class__.__name__
+
+
+def _item(section: Any, key: str) -> Any:
+    try:
+        return section[key]
+    except (KeyError, IndexError, TypeError):
+        return None
+
+
+def _value(section: Any, key: str) -> Any:
+    item = _item(section, key)
+    return None if item is None else item.value
+
+
+def read_las_raw(path: str | Path, config: Config) -> RawWell:
+    """Read one LAS file without conditioning. The first curve must be a depth index.
+
+    Depth unit comes from the index curve's unit, else the ~Well STRT unit (FT/F/FEET -> ft,
+    M/METER/METRES -> m); if both are given they must agree.
+    """
+    import lasio
+
+    path = Path(path)
+    src = str(path)
+    if not path.is_file():
+        raise InputError("LAS file not found", file=src)
+    aliases = alias_table(config)
+    try:
+        las = lasio.read(src, null_policy="none", ignore_header_errors=False)
+    except Exception as exc:  # lasio raises many types on garbled text; report one line
+        raise InputError(f"cannot read as LAS ({one_line(exc)})", file=src) from None
+
+    name = str(_value(las.well, "WELL") or "").strip()
+    notes: list[str] = []
+    if not name:
+        name = path.stem
+        notes.append("~Well WELL is blank; well named after the file")
+    where = {"file": src, "well": name}
+    if len(las.curves) == 0:
+        raise InputError("no curves in the ~Curve section", **where)
+    index = las.curves[0]
+    if not aliases.is_depth(index.original_mnemonic or index.mnemonic):
+        raise InputError(f"first curve {index.mnemonic!r} is not a depth index "
+                         f"(expected one of {', '.join(aliases.depth_mnemonics)})", **where)
+    if len(las.curves) < 2:
+        raise InputError("no log curves besides the depth index", **where)
+    try:
+        n_rows = len(index.data)
+    except TypeError:
+        n_rows = 0
+    if n_rows == 0:
+        raise InputError("no data rows in the ~ASCII section", **where)
+
+    idx_unit = str(index.unit or "").strip()
+    strt = _item(las.well, "STRT")
+    strt_unit = str(strt.unit or "").strip() if strt is not None else ""
+    u_idx, u_strt = aliases.depth_unit(idx_unit), aliases.depth_unit(strt_unit)
+    if u_idx and u_strt and u_idx != u_strt:
+        raise InputError(f"depth curve unit {idx_unit!r} disagrees with STRT unit {strt_unit!r}",
+                         curve=index.mnemonic, **where)
+    unit = u_idx or u_strt
+    if unit is None:
+        raise InputError(f"depth unit not recognised (curve unit {idx_unit!r}, STRT unit "
+                         f"{strt_unit!r})", curve=index.mnemonic, **where)
+
+    nulls: list[float] = []
+    null = _value(las.well, "NULL")
+    try:
+        if null is not None and str(null).strip() != "":
+            nulls.append(float(null))
+    except (TypeError, ValueError):
+        raise InputError(f"NULL value {null!r} is not a number", **where) from None
+
+    header: dict[str, Any] = {"version": _value(las.version, "VERS"),
+                              "wrap": str(_value(las.version, "WRAP") or "")}
+    for key in ("STRT", "STOP", "STEP", "NULL"):
+        v = _value(las.well, key)
+        try:
+            header[key] = float(v)
+        except (TypeError, ValueError):
+            header[key] = None
+    for key in ("WELL", "UWI", "FLD", "COMP", "LOC", "DATE"):
+        v = _value(las.well, key)
+        if v not in (None, ""):
+            header[key] = str(v)
+    header["depth_unit"] = unit
+    notes += _header_checks(header, index.data, unit)
+
+    curves = []
+    for c in las.curves[1:]:
+        data = c.data
+        if data is None or len(data) != n_rows:
+            raise InputError("curve length differs from the depth index", curve=c.mnemonic,
+                             **where)
+        curves.append(RawCurve(mnemonic=str(c.mnemonic), unit=str(c.unit or "").strip(),
+                               values=data))
+    return RawWell(name=name, source=src, depth=index.data, depth_unit=unit, curves=curves,
+                   null_values=nulls, header=header, notes=notes)
+
+
+def _header_checks(header: dict[str, Any], depth: Any, unit: str) -> list[str]:
+    """Compare ~Well STRT/STOP/STEP with the data (LAS 2.0: STRT = first depth, STOP = last
+    depth, STEP = constant increment, 0 when the increment varies). Mismatches are notes."""
+    d, _ = clean.to_numeric(depth)
+    d = d[~clean.np.isnan(d)]
+    notes: list[str] = []
+    if d.size == 0:
+        return notes
+    for key, actual in (("STRT", d[0]), ("STOP", d[-1])):
+        v = header.get(key)
+        if v is not None and abs(v - actual) > 1e-4 * max(1.0, abs(actual)):
+            notes.append(f"~Well {key} {v:g} {unit} differs from the data ({actual:g} {unit})")
+    step = header.get("STEP")
+    if step not in (None, 0.0) and d.size > 1:
+        diffs = clean.np.diff(d)
+        if not clean.np.allclose(diffs, step, rtol=1e-3, atol=1e-6):
+            notes.append(f"~Well STEP {step:g} {unit} but the data are not evenly spaced by it")
+    return notes
