@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 from typing import Any
 
@@ -13,6 +14,7 @@ from facies_ml.wells.model import Well
 from facies_ml.wells.table import TABLE_SUFFIXES, table_kind, table_raw_wells
 
 WELL_SUFFIXES = (".las",) + TABLE_SUFFIXES
+log = logging.getLogger("facies_ml.wells")
 
 
 def read_well(path: str | Path, config: Config) -> Well:
@@ -53,8 +55,8 @@ def read_wells(path: str | Path, config: Config,
     Returns (wells, problems). With ``on_error="collect"`` a bad well is skipped and listed in
     ``problems`` as ``{"file", "well", "reason"}``; with ``"raise"`` the first error propagates.
     Tables that are not well logs (no depth column, or no curve known to the alias table,
-    e.g. ``core_intervals.csv``) are never read as wells: they are listed in ``problems`` with
-    ``"skipped": True`` in both modes. A well name seen twice is an error for the second file.
+    e.g. ``core_intervals.csv``) are never read as wells and are not failures: each is noted
+    on the ``facies_ml.wells`` logger. A well name seen twice is an error for the second file.
     """
     if on_error not in ("raise", "collect"):
         raise InputError(f"on_error must be 'raise' or 'collect', not {on_error!r}")
@@ -70,7 +72,6 @@ def read_wells(path: str | Path, config: Config,
     else:
         raise InputError("well file or folder not found", file=str(path))
     failures: list[dict[str, Any]] | None = [] if on_error == "collect" else None
-    problems: list[dict[str, Any]] = []
     wells: list[Well] = []
     seen: dict[str, str] = {}
     for f in files:
@@ -80,8 +81,7 @@ def read_wells(path: str | Path, config: Config,
             else:
                 ok, why = table_kind(f, config)
                 if not ok:
-                    problems.append({"file": str(f), "reason": f"not a well table: {why}",
-                                     "skipped": True})
+                    log.info("skipped %s: not a well table (%s)", f, why)
                     continue
                 got = _table_wells(f, config, None, None, None, failures)
             for w in got:
@@ -94,7 +94,7 @@ def read_wells(path: str | Path, config: Config,
             if failures is None:
                 raise
             failures.append({"file": str(f), "well": err.well, "reason": str(err)})
-    return wells, problems + (failures or [])
+    return wells, failures or []
 
 
 def intake_summary(well: Well) -> str:
