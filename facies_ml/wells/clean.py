@@ -45,7 +45,8 @@ def despike(values: np.ndarray, window: int, threshold: float,
     / sqrt(2) (the residuals from a rolling median are exactly zero along any monotonic run, so
     their own MAD is no measure of noise). Steps between beds thicker than half the window are
     kept; isolated excursions are removed. ``log_scale`` works on log10(x) (resistivity).
-    Returns (copy, number of spikes removed). Curves with zero noise level are left alone.
+    Returns (copy, number of spikes removed). Curves with zero noise level are left alone, and
+    so are the first and last ``window // 2`` samples and samples whose window has a gap.
     """
     out = np.array(values, dtype=float, copy=True)
     work = out.copy()
@@ -55,10 +56,12 @@ def despike(values: np.ndarray, window: int, threshold: float,
     finite = np.isfinite(work)
     if finite.sum() < max(3, window):
         return out, 0
-    med = pd.Series(work).rolling(window, center=True, min_periods=1).median().to_numpy()
+    # full windows only: at the ends of a trending curve a truncated window's median is biased
+    med = pd.Series(work).rolling(window, center=True, min_periods=window).median().to_numpy()
     diffs = np.diff(work[finite])
     sigma = MAD_TO_SIGMA * float(np.median(np.abs(diffs - np.median(diffs)))) / np.sqrt(2.0)
-    if not np.isfinite(sigma) or sigma <= 0:
+    scale = float(np.nanmax(np.abs(work[finite])))
+    if not np.isfinite(sigma) or sigma <= 1e-9 * max(1.0, scale):   # noise-free or quantized
         return out, 0
     with np.errstate(invalid="ignore"):
         spikes = finite & (np.abs(work - med) > threshold * sigma)
@@ -68,8 +71,8 @@ def despike(values: np.ndarray, window: int, threshold: float,
 
 def regular_grid(top: float, bottom: float, step: float) -> np.ndarray:
     """Depths k*step (k integer) from the first multiple >= ``top`` to the last <= ``bottom``."""
-    k0 = int(np.ceil(top / step - 1e-9))
-    k1 = int(np.floor(bottom / step + 1e-9))
+    k0 = int(np.ceil(top / step - 1e-6))
+    k1 = int(np.floor(bottom / step + 1e-6))
     if k1 < k0:
         return np.empty(0)
     return np.round(np.arange(k0, k1 + 1) * step, 10)
@@ -91,11 +94,13 @@ def resample(depth: np.ndarray, values: np.ndarray, grid: np.ndarray,
         hit = np.isclose(grid, d[0], rtol=0.0, atol=1e-9)
         out[hit] = v[0]
         return out
-    out = np.interp(grid, d, v, left=np.nan, right=np.nan)
+    tol = 1e-6  # unit-conversion rounding at the ends (e.g. 1530.096 m / 0.3048)
+    out = np.interp(grid, d, v)
+    out[(grid < d[0] - tol) | (grid > d[-1] + tol)] = np.nan
     right = np.clip(np.searchsorted(d, grid, side="left"), 0, d.size - 1)
     left = np.clip(right - 1, 0, d.size - 1)
-    exact = np.isclose(d[right], grid, rtol=0.0, atol=1e-9) | np.isclose(d[left], grid, rtol=0.0,
-                                                                         atol=1e-9)
+    exact = np.isclose(d[right], grid, rtol=0.0, atol=tol) | np.isclose(d[left], grid, rtol=0.0,
+                                                                        atol=tol)
     gap = (d[right] - d[left]) > max_gap + 1e-9
     out[gap & ~exact] = np.nan
     return out
