@@ -1,0 +1,155 @@
+"""End to end through the CLI on a tiny generated basin, and the bad-input contract:
+a non-zero exit and one ``error:`` line naming the file/well/row, never a traceback."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import lasio
+import numpy as np
+import pandas as pd
+import pytest
+
+from facies_ml.cli import main
+
+REQUIRED_KEYS = ("lithofacies_accuracy", "lithofacies_f1_macro", "systems_tract_accuracy",
+                 "systems_tract_accuracy_raw", "mfs_depth_error", "sb_depth_error",
+                 "rule_violations")
+
+
+def _core(basin: Path) -> Path:
+    return basin / "core_intervals.csv"
+
+
+def _err_line(capsys) -> str:
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err, "expected an error line on stderr"
+    last = err[-1]
+    assert last.startswith("error: ")
+    assert "Traceback" not in "\n".join(err)
+    return last
+
+
+@pytest.fixture(scope="module")
+def trained(tiny_basin, fast_config, tmp_path_factory):
+    model_dir = tmp_path_factory.mktemp("models")
+    rc = main(["train", "--wells", str(tiny_basin), "--core", str(_core(tiny_basin)),
+               "--core-gamma", str(tiny_basin / "core_gamma.csv"),
+               "--model-dir", str(model_dir), "--config", str(fast_config)])
+    assert rc == 0
+    return model_dir
+
+
+def test_evaluate_writes_metrics_per_well(tiny_basin, fast_config, tmp_path, capsys):
+    rc = main(["evaluate", "--wells", str(tiny_basin), "--core", str(_core(tiny_basin)),
+               "--out", str(tmp_path), "--config", str(fast_config)])
+    assert rc == 0
+    printed = capsys.readouterr().out
+    metrics = json.loads((tmp_path / "metrics.json").read_text())
+    cored = sorted(pd.read_csv(_core(tiny_basin))["well"].unique())
+    assert sorted(metrics["wells"]) == cored
+    for name in cored:
+        assert name in printed
+        for key in REQUIRED_KEYS:
+            assert key in metrics["wells"][name]
+        assert metrics["wells"][name]["rule_violations"] == 0
+        assert 0.0 <= metrics["wells"][name]["lithofacies_accuracy"] <= 1.0
+    for key in REQUIRED_KEYS:
+        assert key in metrics["overall"]
+    # the forward model's facies are learnable from logs: well above the 1/6 chance level
+    assert metrics["overall"]["lithofacies_accuracy"] > 0.4
+
+
+def test_train_predict_outputs(trained, tiny_basin, tmp_path, capsys):
+    out = tmp_path / "pred"
+    rc = main(["predict", "--model-dir", str(trained), "--wells", str(tiny_basin),
+               "--out", str(out), "--no-progress", "--plots"])
+    assert rc == 0
+    las_files = sorted(out.glob("*.las"))
+    assert len(las_files) == 4
+    las = lasio.read(las_files[0])
+    assert "LITHO_CODE" in las.keys() and "TRACT_CODE" in las.keys()
+    codes = set(np.unique(las["LITHO_CODE"][np.isfinite(las["LITHO_CODE"])]).astype(int))
+    assert codes <= {1, 2, 3, 4, 5, 6}
+    params = {p.mnemonic: p.descr for p in las.params}
+    assert params["LITH1"] == "lithofacies code" and las.params["LITH1"].value == "ORSM"
+    p_cols = [k for k in las.keys() if k.startswith("P_")]
+    probs = np.column_stack([las[k] for k in p_cols[:6]])
+    assert np.allclose(probs.sum(axis=1), 1.0, atol=1e-3)
+    tops = pd.read_csv(out / "tops.csv", comment="#")
+    assert set(tops["surface"]) <= {"SB", "MFS"}
+    assert (tops["depth_p10"] <= tops["depth_p90"]).all()
+    assert (out / "report.html").stat().st_size > 10_000
+    assert (out / "figures" / "correlation_panel.png").is_file()
+    assert (out / "landing_zones.csv").is_file()
+
+
+def test_predict_one_bad_file_does_not_abort(trained, tiny_basin, tmp_path, capsys):
+    wells = tmp_path / "wells"
+    wells.mkdir()
+    for f in sorted(tiny_basin.glob("*.las"))[:2]:
+        shutil.copy(f, wells / f.name)
+    (wells / "BROKEN.las").write_text("~Version\nVERS. 2.0:\n~Curve\n~A\n1 2 3\n")
+    rc = main(["predict", "--model-dir", str(trained), "--wells", str(wells),
+               "--out", str(tmp_path / "o"), "--no-progress"])
+    assert rc == 0
+    fails = pd.read_csv(tmp_path / "o" / "failures.csv")
+    assert len(fails) == 1 and "BROKEN" in fails["file"].iloc[0]
+    assert len(list((tmp_path / "o").glob("*.las"))) == 2
+
+
+def test_missing_folder(capsys, tmp_path):
+    rc = main(["evaluate", "--wells", str(tmp_path / "nope"), "--core", "x.csv",
+               "--out", str(tmp_path)])
+    assert rc == 2
+    assert "nope" in _err_line(capsys)
+
+
+def test_las_without_depth_index(tmp_path, capsys, tiny_basin):
+    bad = tmp_path / "w"
+    bad.mkdir()
+    (bad / "NODEPTH.las").write_text(
+        "~Version\nVERS. 2.0 :\nWRAP. NO :\n~Well\nWELL. NODEPTH :\nNULL. -999.25 :\n"
+        "~Curve\nGR .GAPI : gamma\nRHOB .G/C3 : density\n~A\n50 2.5\n60 2.4\n")
+    rc = main(["train", "--wells", str(bad / "NODEPTH.las"), "--core", str(_core(tiny_basin)),
+               "--model-dir", str(tmp_path / "m")])
+    assert rc == 2
+    line = _err_line(capsys)
+    assert "NODEPTH" in line
+
+
+def test_core_unknown_well_and_top_below_base(tiny_basin, tmp_path, capsys):
+    core = pd.read_csv(_core(tiny_basin))
+    unknown = core.copy()
+    unknown.loc[3, "well"] = "QM-X9"
+    p = tmp_path / "unknown.csv"
+    unknown.to_csv(p, index=False)
+    rc = main(["train", "--wells", str(tiny_basin), "--core", str(p),
+               "--model-dir", str(tmp_path / "m")])
+    assert rc == 2
+    line = _err_line(capsys)
+    assert "QM-X9" in line and "unknown.csv" in line
+    flipped = core.copy()
+    flipped.loc[5, ["top", "base"]] = [flipped.loc[5, "base"], flipped.loc[5, "top"]]
+    p2 = tmp_path / "flipped.csv"
+    flipped.to_csv(p2, index=False)
+    rc = main(["train", "--wells", str(tiny_basin), "--core", str(p2),
+               "--model-dir", str(tmp_path / "m")])
+    assert rc == 2
+    line = _err_line(capsys)
+    assert "flipped.csv" in line and "row" in line
+
+
+def test_module_entry_point_runs():
+    # `python -m facies_ml` is the documented alternative to the console script
+    res = subprocess.run([sys.executable, "-m", "facies_ml", "--help"], capture_output=True,
+                         text=True, check=False)
+    assert res.returncode == 0 and "evaluate" in res.stdout
+    res = subprocess.run([sys.executable, "-m", "facies_ml", "predict", "--model-dir", "/nonexist",
+                          "--wells", "/nonexist", "--out", "/tmp/x"], capture_output=True,
+                         text=True, check=False)
+    assert res.returncode == 2 and "Traceback" not in res.stderr and "error:" in res.stderr
