@@ -1,0 +1,432 @@
+"""Synthetic demo basin: a forward model of the invented Quillmere Basin (Brackwater Shale).
+
+Relative sea level (second- plus third-order cycles) -> systems tracts -> lithofacies beds ->
+composition (minerals, porosity, TOC) -> noise-free logs -> tool response, noise and borehole
+effects -> LAS files, core descriptions, core gamma and truth tables. The column is built
+up-section (deepest sample first); files are written top-down with depth increasing.
+All names, wells and values are invented demo data.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from facies_ml.config import CONFIG_DIR, load_facies_scheme, read_yaml
+from facies_ml.errors import InputError
+from facies_ml.synthetic import stratigraphy as strat
+from facies_ml.synthetic import tools
+from facies_ml.synthetic.petrophysics import rock_logs
+from facies_ml.synthetic.writers import write_csv, write_json, write_las
+
+DEFAULT_SYNTH_CONFIG = CONFIG_DIR / "synthetic_basin.yaml"
+DEFAULT_SEED = 20261202
+M_PER_FT = 0.3048
+
+__all__ = ["BasinSummary", "DEFAULT_SEED", "DEFAULT_SYNTH_CONFIG", "generate_basin",
+           "load_synth_config"]
+
+
+@dataclass
+class BasinSummary:
+    """What :func:`generate_basin` wrote."""
+
+    out_dir: Path
+    wells: dict[str, str]                       # well name -> "cored" | "offset"
+    files: list[Path] = field(default_factory=list)
+
+
+def load_synth_config(path: str | Path | None = None) -> dict[str, Any]:
+    """Read the forward-model settings (default: bundled configs/synthetic_basin.yaml)."""
+    path = Path(path) if path is not None else DEFAULT_SYNTH_CONFIG
+    cfg = read_yaml(path)
+    for key in ("sea_level", "thickness", "facies", "composition", "petrophysics", "logging",
+                "wells", "core"):
+        if not isinstance(cfg.get(key), dict):
+            raise InputError(f"missing section {key!r}", file=str(path))
+    scheme_path = Path(cfg.get("facies_scheme", "facies_demo.yaml"))
+    if not scheme_path.is_absolute():
+        scheme_path = path.resolve().parent / scheme_path
+    scheme = load_facies_scheme(scheme_path)
+    labels = list(cfg["facies"].get("labels") or [])
+    if labels != scheme.labels:
+        raise InputError(f"facies.labels {labels} must equal the scheme's labels {scheme.labels}",
+                         file=str(path))
+    n = len(labels)
+    for sec, key in [("composition", "clay"), ("composition", "quartz"),
+                     ("composition", "calcite"), ("composition", "porosity"),
+                     ("composition", "toc_scale"), ("facies", "bed_median_ft")]:
+        if len(cfg[sec].get(key) or []) != n:
+            raise InputError(f"{sec}.{key} needs {n} values (one per lithofacies)", file=str(path))
+    for tract in strat.TRACTS:
+        mix = cfg["facies"]["mix"].get(tract) or {}
+        for end in ("base", "top"):
+            if len(mix.get(end) or []) != n:
+                raise InputError(f"facies.mix.{tract}.{end} needs {n} probabilities",
+                                 file=str(path))
+    cfg["_path"] = str(path)
+    return cfg
+
+
+def _plan(n_wells: int, n_cored: int, cfg: dict[str, Any]) -> list[dict[str, Any]]:
+    """Names, roles, proximal->distal positions and per-well variants (interleaved roles)."""
+    cored = [f"QM-K{i}" for i in range(1, n_cored + 1)]
+    offset = [f"QM-O{i}" for i in range(1, n_wells - n_cored + 1)]
+    order: list[str] = []
+    for i in range(max(len(cored), len(offset))):
+        order += cored[i:i + 1] + offset[i:i + 1]
+    pos = np.linspace(0.05, 0.95, n_wells) if n_wells > 1 else np.array([0.5])
+    wc = cfg["wells"]
+    n_off = len(offset)
+
+    def pick(number: int, fallback: int) -> int | None:
+        if n_off == 0:
+            return None
+        return number if number <= n_off else fallback
+
+    metres = pick(int(wc["metres_offset"]), n_off)
+    no_pe = pick(int(wc["no_pe_offset"]), 1)
+    if no_pe == metres and n_off > 1:
+        no_pe = next(i for i in range(1, n_off + 1) if i != metres)
+    nphi_pct = pick(int(wc["nphi_percent_offset"]), 0) or None
+    plan = []
+    for name, p in zip(order, pos, strict=True):
+        role = "cored" if name in cored else "offset"
+        num = int(name[4:])
+        v = (num - 1) % 5
+        spectral = num in (wc["spectral_cored"] if role == "cored" else wc["spectral_offset"])
+        plan.append({
+            "name": name, "role": role, "number": num, "position": round(float(p), 4),
+            "unit": "m" if role == "offset" and num == metres else "ft",
+            "has_pe": not (role == "offset" and num == no_pe),
+            "nphi_unit": "%" if role == "offset" and num == nphi_pct else "v/v",
+            "has_bs_curve": not (role == "offset" and num in wc.get("bs_curve_missing_offset", [])),
+            "spectral": bool(spectral),
+            "mnemonics": {k: wc[f"{k}_mnemonics"][v % len(wc[f"{k}_mnemonics"])]
+                          for k in ("resistivity", "density", "neutron", "pe", "sonic", "caliper")},
+        })
+    return plan
+
+
+def _compose(fac: np.ndarray, col: strat.Column, comp: dict[str, Any], rng: np.random.Generator
+             ) -> dict[str, np.ndarray]:
+    """Mineral shares (of mineral volume), porosity (v/v) and TOC (wt%) per sample."""
+    n = len(fac)
+    w = col.water_depth
+    trend = float(comp["biogenic_silica_trend"]) * (w - 0.5)
+    jit = float(comp["mineral_jitter"])
+    clay = np.asarray(comp["clay"], float)[fac] - trend + jit * rng.standard_normal(n)
+    qtz = np.asarray(comp["quartz"], float)[fac] + trend + jit * rng.standard_normal(n)
+    cal = np.asarray(comp["calcite"], float)[fac] + jit * rng.standard_normal(n)
+    mins = np.clip(np.vstack([clay, qtz, cal]), 0.005, None)
+    mins /= mins.sum(axis=0)
+    phi = np.asarray(comp["porosity"], float)[fac] + float(comp["porosity_jitter"]) * \
+        rng.standard_normal(n)
+    phi = np.clip(phi, 0.005, 0.3)
+    scale = np.asarray(comp["toc_scale"], float)[fac]
+    tmin, tmax = float(comp["toc_min_wt_pct"]), float(comp["toc_max_wt_pct"])
+    toc = tmin + (tmax - tmin) * w ** float(comp["toc_exponent"])
+    d = np.where(np.isfinite(col.dist_to_mfs_ft), col.dist_to_mfs_ft, 1e9)
+    toc = toc + float(comp["toc_condensed_bonus_wt_pct"]) * np.exp(
+        -0.5 * (d / float(comp["toc_condensed_width_ft"])) ** 2)
+    toc = scale * toc * np.exp(float(comp["toc_noise_sigma"]) * rng.standard_normal(n))
+    u_extra = float(comp["u_condensed_bonus_ppm"]) * np.exp(
+        -0.5 * (d / float(comp["u_condensed_width_ft"])) ** 2)
+    return {"clay": mins[0], "quartz": mins[1], "calcite": mins[2], "phi": phi, "toc": toc,
+            "u_extra": u_extra}
+
+
+def _simulate_well(w: dict[str, Any], n_samples: int, segs: list[strat.Segment],
+                   history: strat.BasinHistory, cfg: dict[str, Any], seed: int, idx: int
+                   ) -> dict[str, Any]:
+    """Geology, petrophysics and logging of one well; arrays returned in LOG order."""
+    step = float(cfg["step_ft"])
+    rng_geo = np.random.default_rng([seed, 2, idx])
+    rng_log = np.random.default_rng([seed, 3, idx])
+    col = strat.build_column(segs, n_samples, step, w["position"], history, cfg["sea_level"])
+    fac = strat.lay_beds(col, step, w["position"], cfg["facies"], rng_geo)
+    rock = _compose(fac, col, cfg["composition"], rng_geo)
+    lo, hi = cfg["petrophysics"]["maturity"]
+    maturity = lo + (hi - lo) * w["position"]
+    truth = rock_logs(rock["clay"], rock["quartz"], rock["calcite"], rock["phi"], rock["toc"],
+                      maturity, cfg["petrophysics"], float(cfg["composition"]["kerogen_per_toc"]),
+                      rock["u_extra"])
+    truth["toc_wt_pct"] = rock["toc"]
+    flip = slice(None, None, -1)                 # up-section -> log (top-down) order
+    truth = {k: v[flip] for k, v in truth.items()}
+    lg = cfg["logging"]
+    bs = float(lg["bit_size_in"][idx % len(lg["bit_size_in"])])
+    washouts = tools.washout_intervals(n_samples, step, lg, rng_log)
+    cal = tools.caliper(n_samples, bs, washouts, float(lg["noise"]["cali"]), rng_log)
+    dens, pe = cfg["petrophysics"]["density_g_cc"], cfg["petrophysics"]["pe_b_e"]
+    gr_scale = round(float(rng_log.uniform(*lg["gr_scale"])), 3)
+    gr_offset = round(float(rng_log.uniform(*lg["gr_offset_api"])), 2)
+    logs = tools.log_curves(truth, lg, {"rho": dens["mud"], "pe": pe["mud"]}, washouts, cal, bs,
+                            gr_scale, gr_offset, rng_log)
+    if not w["has_pe"]:
+        del logs["pe"]
+    if not w["spectral"]:
+        for k in ("k", "u", "th"):
+            del logs[k]
+    keys = [k for k in ("gr", "rt", "rhob", "nphi", "pe", "dt") if k in logs]
+    spikes = tools.add_spikes(logs, keys, lg, rng_log)
+    gaps = tools.add_null_gaps(logs, keys, lg, rng_log)
+    labels = cfg["facies"]["labels"]
+    return {
+        "col": col, "truth": truth, "logs": logs, "bs": bs, "washouts": washouts,
+        "spikes": spikes, "gaps": gaps, "gr_scale": gr_scale, "gr_offset": gr_offset,
+        "maturity": maturity,
+        "lithofacies": np.asarray(labels)[fac][flip],
+        "tract": np.asarray(strat.TRACTS)[col.tract][flip],
+        "sequence": col.sequence[flip], "sea_level": col.sea_level[flip],
+        "water_depth": col.water_depth[flip], "phase": col.phase[flip],
+        "height_ft": col.height_ft[flip],
+    }
+
+
+_DESCR = {
+    "gr": ("gAPI", "gamma ray"), "k": ("%", "spectral gamma potassium"),
+    "u": ("ppm", "spectral gamma uranium"), "th": ("ppm", "spectral gamma thorium"),
+    "rt": ("ohmm", "deep resistivity"), "rhob": ("g/cc", "bulk density"),
+    "nphi": ("v/v", "neutron porosity, limestone matrix"), "pe": ("b/e", "photoelectric factor"),
+    "dt": ("us/ft", "compressional slowness"), "cali": ("in", "caliper"),
+    "bs": ("in", "bit size"),
+}
+_ROLE_OF = {"gr": "gr_api", "k": "k_pct", "u": "u_ppm", "th": "th_ppm", "rt": "rt_ohmm",
+            "rhob": "rhob_g_cc", "nphi": "nphi_v_v", "pe": "pe_b_e", "dt": "dtc_us_ft",
+            "cali": "cali_in", "bs": "bs_in"}
+
+
+def _mnemonic(key: str, w: dict[str, Any]) -> str:
+    m = w["mnemonics"]
+    return {"gr": "GR", "k": "POTA", "u": "URAN", "th": "THOR", "rt": m["resistivity"],
+            "rhob": m["density"], "nphi": m["neutron"], "pe": m["pe"], "dt": m["sonic"],
+            "cali": m["caliper"], "bs": "BS"}[key]
+
+
+def _readme(cfg: dict[str, Any], seed: int, plan: list[dict[str, Any]]) -> str:
+    rows = "\n".join(f"| {w['name']} | {w['role']} | {w['position']:.2f} | {w['unit']} |"
+                     for w in plan)
+    return f"""# Synthetic demo basin: {cfg['basin']}, {cfg['formation']}
+
+CAUTION: this is INVENTED demo data made by a forward model (facies_ml.synthetic, generator
+version {cfg['generator_version']}, seed {seed}). The basin, formation, wells, operator and
+identifiers do not exist. Do not use it for any real decision.
+
+The model: relative sea level (a slow second-order cycle plus {cfg['sea_level']['n_sequences']}
+third-order cycles) sets systems tracts (LST in basinward wells only, TST, EHST, LHST; LHST
+partly eroded below each SB in proximal wells); tracts set a lithofacies bed mix; lithofacies
+and water depth set minerals, porosity and TOC; simple petrophysics gives the logs; tool
+response, noise, GR calibration, washouts, spikes and NULL gaps make them look logged.
+
+| well | role | position (0 proximal, 1 distal) | depth unit |
+|---|---|---|---|
+{rows}
+
+Files (depth increases downward; sequences are numbered from the deepest = 1):
+- `<WELL>.las`: LAS 2.0 logs, NULL -999.25, depth in the well's unit.
+- `core_intervals.csv`: `well,top,base,lithofacies,systems_tract`, cored wells only, in CORE
+  depth (log depth = core depth + shift; the shift per well is in basin.json and truth).
+- `core_gamma.csv`: `well,depth,core_gr_api`, gamma measured on the core, in core depth.
+- `truth/<WELL>.csv`: the true model at every LAS sample (log depth), noise-free values.
+- `truth/surfaces.csv`: `well,surface,depth,sequence` (SB = base of the sequence, MFS).
+- `basin.json`: roles, positions, units, missing curves, washouts, spikes, NULL gaps, core
+  shift, GR calibration, seed and generator version.
+"""
+
+
+def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
+                   seed: int = DEFAULT_SEED, config_path: str | Path | None = None,
+                   samples_per_well: int | None = None) -> BasinSummary:
+    """Write a synthetic demo basin into ``out_dir`` and return what was written.
+
+    ``samples_per_well``: mean samples per well (default: the thickness the settings give,
+    2,000-4,000 samples at 0.5 ft); lateral thickness differences are kept.
+    Same inputs give byte-identical files.
+    """
+    if int(n_wells) < 2:
+        raise InputError(f"n_wells must be at least 2, not {n_wells}")
+    if not 1 <= int(n_cored) <= int(n_wells):
+        raise InputError(f"n_cored must be between 1 and n_wells ({n_wells}), not {n_cored}")
+    if samples_per_well is not None and int(samples_per_well) < 200:
+        raise InputError(f"samples_per_well must be at least 200, not {samples_per_well}")
+    cfg = load_synth_config(config_path)
+    out = Path(out_dir)
+    (out / "truth").mkdir(parents=True, exist_ok=True)
+    seed = int(seed)
+    plan = _plan(int(n_wells), int(n_cored), cfg)
+    step_ft = float(cfg["step_ft"])
+    rng_basin = np.random.default_rng([seed, 1])
+    history = strat.make_history(cfg["sea_level"], cfg["thickness"], rng_basin)
+    segs = [strat.well_segments(w["position"], history, cfg["sea_level"], cfg["thickness"],
+                                rng_basin) for w in plan]
+    totals = np.array([sum(s.thickness_ft for s in ss) for ss in segs])
+    scale = 1.0 if samples_per_well is None else samples_per_well * step_ft / totals.mean()
+    th = cfg["thickness"]
+    dec = int(cfg["logging"]["rounding"])
+    files: list[Path] = []
+    surfaces, core_rows, gamma_rows, meta = [], [], [], []
+    cored_no = 0
+    for idx, (w, ss) in enumerate(zip(plan, segs, strict=True)):
+        n = int(round(totals[idx] * scale / step_ft))
+        sim = _simulate_well(w, n, ss, history, cfg, seed, idx)
+        top_lo, top_hi = th["top_depth_ft"]
+        top_ft = top_lo + (top_hi - top_lo) * w["position"] + float(th["top_depth_jitter_ft"]) * \
+            rng_basin.uniform(-1.0, 1.0)
+        top_ft = round(top_ft / step_ft) * step_ft
+        f = M_PER_FT if w["unit"] == "m" else 1.0
+        step = float(cfg["step_m"]) if w["unit"] == "m" else step_ft
+        depth = np.round(top_ft * f + np.arange(n) * step, dec)
+        base_edge = top_ft + (n - 0.5) * step_ft      # ft, bottom edge of the deepest sample
+        # --- LAS ---
+        logs = dict(sim["logs"])
+        if w["nphi_unit"] == "%":
+            logs["nphi"] = logs["nphi"] * 100.0
+        if w["has_bs_curve"]:
+            logs["bs"] = np.full(n, sim["bs"])
+        order = ["gr", "k", "u", "th", "rt", "rhob", "nphi", "pe", "dt", "cali", "bs"]
+        curves = []
+        for key in order:
+            if key in logs:
+                unit, descr = _DESCR[key]
+                if key == "nphi":
+                    unit = w["nphi_unit"]
+                curves.append((_mnemonic(key, w), unit, descr, logs[key]))
+        uwi = f"99-QB-{1000 + idx:04d}-{w['name'][3:]}"
+        header = {"WELL": w["name"], "COMP": "Quillmere Demo Operating (invented)",
+                  "FLD": "Quillmere Basin (invented)", "LOC": f"transect position "
+                  f"{w['position']:.2f} (0 proximal, 1 distal)", "PROV": "Quillmere (invented)",
+                  "SRVC": "synthetic forward model", "DATE": "2026-12-02", "UWI": uwi}
+        params = [("BS", "in", sim["bs"], "bit size"),
+                  ("EKB", w["unit"], round((820.0 + 40.0 * idx) * f, 2), "kelly bushing elevation"),
+                  ("FORM", "", cfg["formation"], "formation logged")]
+        other = (f"Invented demo data: {cfg['basin']} forward model, facies_ml.synthetic "
+                 f"{cfg['generator_version']}, seed {seed}. Not a real well.")
+        las_path = out / f"{w['name']}.las"
+        write_las(las_path, depth, w["unit"], curves, header, params, other, dec)
+        files.append(las_path)
+        # --- truth ---
+        t = sim["truth"]
+        truth = pd.DataFrame({
+            "depth": depth, "lithofacies": sim["lithofacies"], "systems_tract": sim["tract"],
+            "sequence": sim["sequence"], "toc_wt_pct": t["toc_wt_pct"],
+            "vclay_v_v": t["vclay_v_v"], "vquartz_v_v": t["vquartz_v_v"],
+            "vcalcite_v_v": t["vcalcite_v_v"], "vkerogen_v_v": t["vkerogen_v_v"],
+            "phi_v_v": t["phi_v_v"], "sw_v_v": t["sw_v_v"], "gr_api": t["gr_api"],
+            "k_pct": t["k_pct"], "u_ppm": t["u_ppm"], "th_ppm": t["th_ppm"],
+            "rt_ohmm": t["rt_ohmm"], "rhob_g_cc": t["rhob_g_cc"], "nphi_v_v": t["nphi_v_v"],
+            "pe_b_e": t["pe_b_e"], "dtc_us_ft": t["dtc_us_ft"],
+            "relative_sea_level": sim["sea_level"], "water_depth_index": sim["water_depth"],
+            "phase": sim["phase"], "height_above_base": sim["height_ft"] * f,
+        })
+        tpath = out / "truth" / f"{w['name']}.csv"
+        write_csv(tpath, truth, dec)
+        files.append(tpath)
+        col = sim["col"]
+        for k in range(len(col.sb_height_ft)):
+            for surf, hgt in (("SB", col.sb_height_ft[k]), ("MFS", col.mfs_height_ft[k])):
+                if np.isfinite(hgt):
+                    surfaces.append({"well": w["name"], "surface": surf,
+                                     "depth": round((base_edge - hgt) * f, dec),
+                                     "sequence": k + 1})
+        # --- core ---
+        core_meta: dict[str, Any] = {}
+        if w["role"] == "cored":
+            cored_no += 1
+            core_meta = _core(w, cored_no, depth, step, f, sim, cfg, seed, idx, core_rows,
+                              gamma_rows)
+        meta.append(_well_meta(w, depth, step, n, sim, core_meta, dec))
+    write_csv(out / "truth" / "surfaces.csv", pd.DataFrame(surfaces), dec)
+    write_csv(out / "core_intervals.csv",
+              pd.DataFrame(core_rows, columns=["well", "top", "base", "lithofacies",
+                                               "systems_tract"]), dec)
+    write_csv(out / "core_gamma.csv",
+              pd.DataFrame(gamma_rows, columns=["well", "depth", "core_gr_api"]), dec)
+    basin = {
+        "generator": "facies_ml.synthetic", "generator_version": str(cfg["generator_version"]),
+        "seed": seed, "basin": cfg["basin"], "formation": cfg["formation"], "invented": True,
+        "n_sequences": int(cfg["sea_level"]["n_sequences"]),
+        "core_shift_convention": "log depth = core depth + core_shift (well's depth unit)",
+        "position_convention": "0 = most proximal, 1 = most distal",
+        "wells": meta,
+    }
+    write_json(out / "basin.json", basin)
+    (out / "README.md").write_text(_readme(cfg, seed, plan), newline="\n")
+    files += [out / "truth" / "surfaces.csv", out / "core_intervals.csv", out / "core_gamma.csv",
+              out / "basin.json", out / "README.md"]
+    return BasinSummary(out_dir=out, wells={w["name"]: w["role"] for w in plan}, files=files)
+
+
+def _core(w: dict[str, Any], cored_no: int, depth: np.ndarray, step: float, f: float,
+          sim: dict[str, Any], cfg: dict[str, Any], seed: int, idx: int,
+          core_rows: list[dict[str, Any]], gamma_rows: list[dict[str, Any]]) -> dict[str, Any]:
+    """Core intervals and core gamma of one cored well (appended in core depth)."""
+    cc = cfg["core"]
+    dec = int(cfg["logging"]["rounding"])
+    n = len(depth)
+    shift = round(float(cc["shift_ft"][(cored_no - 1) % len(cc["shift_ft"])]) * f, dec)
+    i0, i1 = int(round(cc["cored_fraction"][0] * n)), int(round(cc["cored_fraction"][1] * n))
+    keep = np.zeros(n, bool)
+    keep[i0:i1] = True
+    lost: list[float] = []
+    if cored_no == int(cc["lost_core_well"]):
+        g0 = i0 + int(0.45 * (i1 - i0))
+        g1 = g0 + int(round(float(cc["lost_core_ft"]) * f / step))
+        keep[g0:g1] = False
+        lost = [round(depth[g0] - step / 2 - shift, dec), round(depth[g1 - 1] + step / 2 - shift,
+                                                                 dec)]
+    lab = np.char.add(np.char.add(sim["lithofacies"].astype(str), "|"), sim["tract"].astype(str))
+    i = 0
+    while i < n:
+        if not keep[i]:
+            i += 1
+            continue
+        j = i
+        while j + 1 < n and keep[j + 1] and lab[j + 1] == lab[i]:
+            j += 1
+        core_rows.append({"well": w["name"], "top": round(depth[i] - step / 2 - shift, dec),
+                          "base": round(depth[j] + step / 2 - shift, dec),
+                          "lithofacies": sim["lithofacies"][i], "systems_tract": sim["tract"][i]})
+        i = j + 1
+    rng = np.random.default_rng([seed, 4, idx])
+    g = tools.tool_response(sim["truth"]["gr_api"], float(cc["gamma_sigma_samples"]))
+    g = float(cc["gamma_scale"]) * g + float(cc["gamma_noise_api"]) * rng.standard_normal(n)
+    for k in np.flatnonzero(keep):
+        gamma_rows.append({"well": w["name"], "depth": round(depth[k] - shift, dec),
+                           "core_gr_api": round(float(g[k]), 2)})
+    return {"core_shift": shift, "core_top": round(depth[i0] - step / 2 - shift, dec),
+            "core_base": round(depth[i1 - 1] + step / 2 - shift, dec), "lost_core": lost}
+
+
+def _well_meta(w: dict[str, Any], depth: np.ndarray, step: float, n: int, sim: dict[str, Any],
+               core: dict[str, Any], dec: int) -> dict[str, Any]:
+    """The basin.json entry of one well (depths in the well's unit, log depth)."""
+    from facies_ml.wells.model import ROLES
+
+    present = {_ROLE_OF[k] for k in sim["logs"]} | ({"bs_in"} if w["has_bs_curve"] else set())
+    curves = {_ROLE_OF[k]: _mnemonic(k, w) for k in
+              ["gr", "k", "u", "th", "rt", "rhob", "nphi", "pe", "dt", "cali", "bs"]
+              if _ROLE_OF[k] in present}
+    half = step / 2
+    return {
+        "name": w["name"], "role": w["role"], "position": w["position"],
+        "depth_unit": w["unit"], "step": step, "n_samples": n,
+        "top": float(depth[0]), "base": float(depth[-1]),
+        "curves": curves, "missing_curves": [r for r in ROLES if r not in present],
+        "nphi_unit": w["nphi_unit"], "bit_size_in": sim["bs"],
+        "lst_present": bool((sim["tract"] == "LST").any()),
+        "maturity_factor": round(sim["maturity"], 4),
+        "gr_scale": sim["gr_scale"], "gr_offset_api": sim["gr_offset"],
+        "washouts": [{"top": round(float(depth[a]) - half, dec),
+                      "base": round(float(depth[b - 1]) + half, dec),
+                      "enlargement_in": round(e, 2)} for a, b, e in sim["washouts"]],
+        "spikes": [{"curve": _mnemonic(k, w), "depth": float(depth[i])} for k, i in sim["spikes"]],
+        "null_gaps": [{"curve": _mnemonic(k, w), "top": float(depth[a]),
+                       "base": float(depth[b - 1])} for k, a, b in sim["gaps"]],
+        "core_shift": core.get("core_shift"), "core_top": core.get("core_top"),
+        "core_base": core.get("core_base"), "lost_core": core.get("lost_core", []),
+    }
