@@ -208,6 +208,10 @@ def build_well(raw: RawWell, config: Config) -> Well:
         raise InputError("no usable samples: every recognised curve is empty after cleaning",
                          **where)
     top, bottom = float(dw[has_data][0]), float(dw[has_data][-1])
+    n_trim = int(np.argmax(has_data)) + int(np.argmax(has_data[::-1]))
+    if n_trim:
+        notes.append(f"{n_trim} row(s) above/below the logged interval have no data in any "
+                     "recognised curve; not gridded")
     if (bottom - top) / step > float(s["max_samples"]):
         raise InputError(f"depth range {top / f:g} to {bottom / f:g} {raw.depth_unit} would give "
                          f"more than intake.max_samples samples", depth=top / f,

@@ -65,12 +65,20 @@ def table_kind(path: str | Path, config: Config) -> tuple[bool, str]:
     frame = read_frame(path, nrows=0 if Path(path).suffix.lower() == ".csv" else 1)
     cols = list(frame.columns)
     t = table_settings(config)
-    if _find(cols, list(t["depth_columns"])) is None:
+    if _find_depth(cols, list(t["depth_columns"])) is None:
         return False, "no depth column (looked for " + ", ".join(t["depth_columns"]) + ")"
     aliases = alias_table(config)
     if not any(aliases.role_of(c) for c in cols):
         return False, "no column is a curve known to the alias table"
     return True, ""
+
+
+def _find_depth(columns: list[str], wanted: list[str]) -> str | None:
+    """Depth column: a configured name, or one with a unit suffix (``DEPTH_M``, ``depth_ft``)."""
+    found = _find(columns, wanted)
+    if found is None:
+        found = _find(columns, [f"{w}{sfx}" for w in wanted for sfx in ("_m", "_ft")])
+    return found
 
 
 def _depth_unit_from_name(column: str) -> str | None:
@@ -94,7 +102,7 @@ def table_raw_wells(path: str | Path, config: Config, well_column: str | None = 
     wcol = well_column or _find(cols, list(t["well_columns"]))
     if depth_column is not None and depth_column not in cols:
         raise InputError(f"depth column {depth_column!r} not found", file=src)
-    dcol = depth_column or _find(cols, list(t["depth_columns"]))
+    dcol = depth_column or _find_depth(cols, list(t["depth_columns"]))
     if dcol is None:
         raise InputError("no depth column (looked for " + ", ".join(t["depth_columns"]) + ")",
                          file=src)
