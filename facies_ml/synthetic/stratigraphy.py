@@ -128,12 +128,13 @@ def build_column(segs: list[Segment], n_samples: int, step_ft: float, position: 
 def facies_probabilities(tract: int, rel: float, dist_mfs_ft: float, position: float,
                          fac: dict[str, Any]) -> np.ndarray:
     """Lithofacies mix at one level: tract base/top mix interpolated by relative position,
-    extra CARB near the MFS, more silt/sand in proximal wells."""
+    extra CARB and ORSM near the MFS, more silt/sand in proximal wells."""
     mix = fac["mix"][TRACTS[tract]]
     p = (1.0 - rel) * np.asarray(mix["base"], float) + rel * np.asarray(mix["top"], float)
     labels = list(fac["labels"])
     if dist_mfs_ft <= float(fac["carb_near_mfs_ft"]):
         p[labels.index("CARB")] += float(fac["carb_near_mfs_weight"])
+        p[labels.index("ORSM")] += float(fac["orsm_near_mfs_weight"])
     boost = 1.0 + float(fac["proximal_silt_boost"]) * (1.0 - position)
     for name in ("SILM", "SSTB"):
         p[labels.index(name)] *= boost
