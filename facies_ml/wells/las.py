@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 from typing import Any
 
@@ -43,10 +44,15 @@ def read_las_raw(path: str | Path, config: Config) -> RawWell:
     if not path.is_file():
         raise InputError("LAS file not found", file=src)
     aliases = alias_table(config)
+    lasio_log = logging.getLogger("lasio")
+    level = lasio_log.level
+    lasio_log.setLevel(logging.ERROR)  # its per-curve warnings are summarised in our intake
     try:
-        las = lasio.read(src, null_policy="none", ignore_header_errors=False)
+        las = lasio.read(src, null_policy="none", ignore_header_errors=False, engine="normal")
     except Exception as exc:  # lasio raises many types on garbled text; report one line
         raise InputError(f"cannot read as LAS ({one_line(exc)})", file=src) from None
+    finally:
+        lasio_log.setLevel(level)
 
     name = str(_value(las.well, "WELL") or "").strip()
     notes: list[str] = []
