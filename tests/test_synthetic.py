@@ -121,7 +121,8 @@ def test_mfs_at_highest_gr_of_each_sequence(basin: dict, truth: dict,
         win = max(1, round(CHECKS["mfs_gr_smoothing_ft"] / (w["step"] * _ft(w))))
         sgr = uniform_filter1d(t["gr_api"].to_numpy(), win, mode="nearest")
         for seq, g in t.groupby("sequence"):
-            mfs = surfaces.query("well == @w['name'] and sequence == @seq and surface == 'MFS'")
+            mfs = surfaces[(surfaces["well"] == w["name"]) & (surfaces["sequence"] == seq)
+                           & (surfaces["surface"] == "MFS")]
             assert len(mfs) == 1
             i = g.index[int(np.argmax(sgr[g.index]))]
             offsets.append(abs(t.loc[i, "depth"] - mfs["depth"].iloc[0]) * _ft(w))
