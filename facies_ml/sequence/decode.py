@@ -178,36 +178,46 @@ def viterbi_durations(log_start: np.ndarray, log_stay: np.ndarray, log_switch: n
         nonlocal L_final
         Q = blocks.size
         L = used_L[blocks].copy()
-        Ib = np.empty((Q, B + M, n))
-        Ib[:, :M] = used_I[blocks]
-        cm_all = Cm1[blocks]
-        st = np.empty((Q, B, n), dtype=bool)
-        pa = np.zeros((Q, B, n), dtype=np.int16)
+        Ib = np.empty((B + M, Q, n))                       # time-major for cheap row access
+        Ib[:M] = used_I[blocks].transpose(1, 0, 2)
+        cm_all = np.ascontiguousarray(Cm1[blocks].transpose(1, 0, 2))
+        st = np.empty((B, Q, n), dtype=bool)
+        pa = np.zeros((B, Q, n), dtype=np.int16)
+        flat = Ib.reshape(-1)
+        arr_idx = (arrive_row[None, :] * Q + np.arange(Q)[:, None]) * n + ar[None, :]
+        row_step = Q * n
         q0 = np.flatnonzero(blocks == 0)
         ql = np.flatnonzero(blocks == last_blk)
         for tau in range(B):
-            cm = cm_all[:, tau]
-            cand = (L + cm)[:, pred] + pw                  # (Q, n, K)
+            cm = cm_all[tau]
+            Lc = L + cm
             if K == 1:
-                best = cand[..., 0]
+                best = Lc[:, pred[:, 0]] + pw[:, 0]
+            elif K == 2:
+                c0 = Lc[:, pred[:, 0]] + pw[:, 0]
+                c1 = Lc[:, pred[:, 1]] + pw[:, 1]
+                pick = c1 > c0
+                best = np.where(pick, c1, c0)
+                pa[tau] = pick
             else:
+                cand = Lc[:, pred] + pw                   # (Q, n, K)
                 best = cand.max(axis=-1)
-                pa[:, tau] = cand.argmax(axis=-1)
-            Ib[:, M + tau] = best - cm
-            arrival = Ib[:, arrive_row + tau, ar]
+                pa[tau] = cand.argmax(axis=-1)
+            np.subtract(best, cm, out=Ib[M + tau])
+            arrival = flat.take(arr_idx + tau * row_step)
             stayv = L + a
             s = stayv >= arrival
             L = np.where(s, stayv, arrival)
             if tau == 0 and q0.size:
                 L[q0] = ls
                 s[q0] = True
-            st[:, tau] = s
+            st[tau] = s
             if tau == last_tau and ql.size:
                 L_final = L[ql[0]].copy()
-        Ibuf[blocks] = Ib
+        Ibuf[blocks] = Ib.transpose(1, 0, 2)
         Lend[blocks] = L
-        stay[blocks] = st
-        parg[blocks] = pa
+        stay[blocks] = st.transpose(1, 0, 2)
+        parg[blocks] = pa.transpose(1, 0, 2)
 
     run(np.arange(P))
     for _ in range(P + 1):

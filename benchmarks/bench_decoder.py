@@ -1,0 +1,115 @@
+"""Decoder timing: our Viterbi / forward-backward vs hmmlearn on the same models.
+
+Prints figures only (no assertions). Run: /work/venv/bin/python benchmarks/bench_decoder.py
+Models: (a) 4 plain tract states; (b) 4 tracts x 20 sub-states (minimum-duration chains,
+80 states), decoded by our chain decoder and by hmmlearn's dense decoder of the same
+expanded model. Emissions: a blocky synthetic truth plus Gaussian noise, seed 0.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+from hmmlearn.base import BaseHMM
+
+from facies_ml.sequence.decode import (
+    expand_durations,
+    forward_backward,
+    forward_backward_durations,
+    viterbi,
+    viterbi_durations,
+)
+
+
+class ReferenceHMM(BaseHMM):
+    """hmmlearn model taking per-state emission log-likelihoods directly as its input."""
+
+    def __init__(self, n_components: int) -> None:
+        super().__init__(n_components=n_components, algorithm="viterbi", random_state=0,
+                         n_iter=1, tol=0.0, verbose=False, params="", init_params="",
+                         implementation="log")
+
+    def _check(self) -> None:
+        pass
+
+    def _compute_log_likelihood(self, X: np.ndarray) -> np.ndarray:
+        return X
+
+
+def timed(fn, repeat: int):  # noqa: ANN001, ANN201
+    best, out = np.inf, None
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        out = fn()
+        best = min(best, time.perf_counter() - t0)
+    return best, out
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--samples", type=int, default=100_000)
+    ap.add_argument("--substates", type=int, default=20)
+    ap.add_argument("--repeat", type=int, default=3)
+    args = ap.parse_args()
+    T, rep = args.samples, args.repeat
+    rng = np.random.default_rng(0)
+    n = 4
+    allowed = [(0, 1), (1, 2), (2, 3), (3, 0), (3, 1)]       # LST TST EHST LHST, up-section
+    truth = np.repeat(rng.integers(0, n, T // 60 + 1), 60)[:T]
+    emit = rng.normal(size=(T, n))
+    emit[np.arange(T), truth] += 1.0
+
+    # (a) plain 4-state model
+    stay = np.full(n, 0.95)
+    A = np.zeros((n, n))
+    for i, j in allowed:
+        A[i, j] = 1.0
+    A = A / A.sum(axis=1, keepdims=True) * (1 - stay)[:, None] + np.diag(stay)
+    start = np.full(n, 1 / n)
+    with np.errstate(divide="ignore"):
+        lA, ls = np.log(A), np.log(start)
+    ref = ReferenceHMM(n)
+    ref.startprob_, ref.transmat_ = start, A
+    t_ours, (p_ours, lp_ours) = timed(lambda: viterbi(ls, lA, emit), rep)
+    t_ref, (lp_ref, p_ref) = timed(lambda: ref.decode(emit, algorithm="viterbi"), rep)
+    print(f"(a) plain {n} states, T={T}")
+    print(f"    viterbi ours     {T / t_ours:12,.0f} samples/s  ({t_ours * 1e3:.1f} ms)")
+    print(f"    viterbi hmmlearn {T / t_ref:12,.0f} samples/s  ({t_ref * 1e3:.1f} ms)")
+    print(f"    speed ratio ours/hmmlearn {t_ref / t_ours:.2f}; paths equal: "
+          f"{np.array_equal(p_ours, p_ref)}; log-prob diff {lp_ours - lp_ref:.2e}")
+    t_fb, (post, ll) = timed(lambda: forward_backward(ls, lA, emit), 1)
+    t_fbr, post_r = timed(lambda: ref.predict_proba(emit), 1)
+    print(f"    fwd-bwd  ours     {T / t_fb:12,.0f} samples/s; hmmlearn predict_proba "
+          f"{T / t_fbr:,.0f} samples/s; max |dP| {np.abs(post - post_r).max():.1e}")
+
+    # (b) expanded 4 tracts x m sub-states
+    m = np.full(n, args.substates)
+    st_last = np.full(n, 0.9)
+    sw = np.where(A > 0, A, 0.0)
+    np.fill_diagonal(sw, 0.0)
+    sw = sw / sw.sum(axis=1, keepdims=True) * (1 - st_last)[:, None]
+    with np.errstate(divide="ignore"):
+        lsw, lst = np.log(sw), np.log(st_last)
+    x = expand_durations(ls, lst, lsw, m)
+    S = x.log_start.size
+    E_exp = emit[:, x.state_tract]
+    ref_x = ReferenceHMM(S)
+    ref_x.startprob_, ref_x.transmat_ = np.exp(x.log_start), np.exp(x.log_trans)
+    t_d, (p_d, lp_d) = timed(lambda: viterbi_durations(ls, lst, lsw, m, emit), rep)
+    t_dr, (lp_dr, p_dr) = timed(lambda: ref_x.decode(E_exp, algorithm="viterbi"), 1)
+    print(f"(b) expanded {n} tracts x {args.substates} sub-states = {S} states, T={T}")
+    print(f"    viterbi ours (chain)    {T / t_d:12,.0f} samples/s  ({t_d * 1e3:.1f} ms)")
+    print(f"    viterbi hmmlearn dense  {T / t_dr:12,.0f} samples/s  ({t_dr * 1e3:.1f} ms)")
+    print(f"    speed ratio ours/hmmlearn {t_dr / t_d:.2f}; tract paths equal: "
+          f"{np.array_equal(p_d, x.state_tract[p_dr])}; log-prob diff {lp_d - lp_dr:.2e}")
+    t_g, (p_g, _) = timed(lambda: viterbi(x.log_start, x.log_trans, E_exp), 1)
+    print(f"    viterbi ours (generic sparse on the {S}x{S} matrix) {T / t_g:,.0f} samples/s; "
+          f"equal: {np.array_equal(p_g, p_dr)}")
+    t_fd, (post_d, _) = timed(lambda: forward_backward_durations(ls, lst, lsw, m, emit), 1)
+    print(f"    fwd-bwd ours (expanded) {T / t_fd:12,.0f} samples/s  ({t_fd:.2f} s)")
+
+
+if __name__ == "__main__":
+    main()
