@@ -75,7 +75,8 @@ def _slope(x: np.ndarray, y: np.ndarray) -> float:
 
 def test_regeneration_is_byte_identical(tmp_path: Path) -> None:
     summary = generate_basin(tmp_path / "basin", seed=DEFAULT_SEED)
-    new = {p.relative_to(tmp_path / "basin") for p in (tmp_path / "basin").rglob("*") if p.is_file()}
+    out = tmp_path / "basin"
+    new = {p.relative_to(out) for p in out.rglob("*") if p.is_file()}
     old = {p.relative_to(BUNDLED) for p in BUNDLED.rglob("*") if p.is_file()}
     assert new == old
     for rel in sorted(new):
@@ -214,7 +215,8 @@ def test_truth_logs_follow_the_equations(basin: dict, truth: dict) -> None:
         t = truth[w["name"]]
         gr = 16 * t["k_pct"] + 8 * t["u_ppm"] + 4 * t["th_ppm"]
         assert np.allclose(gr, t["gr_api"], atol=2e-3)
-        vsum = t[["vclay_v_v", "vquartz_v_v", "vcalcite_v_v", "vkerogen_v_v", "phi_v_v"]].sum(axis=1)
+        vols = ["vclay_v_v", "vquartz_v_v", "vcalcite_v_v", "vkerogen_v_v", "phi_v_v"]
+        vsum = t[vols].sum(axis=1)
         assert np.allclose(vsum, 1.0, atol=5e-4)
         rho = (t["vclay_v_v"] * d["clay"] + t["vquartz_v_v"] * d["quartz"]
                + t["vcalcite_v_v"] * d["calcite"] + t["vkerogen_v_v"] * d["kerogen"]
@@ -294,7 +296,8 @@ def test_special_wells_present_as_declared(basin: dict, las_files: dict, truth: 
         t = truth[name]
         for wo in w["washouts"]:
             sel = (las.index >= wo["top"]) & (las.index <= wo["base"])
-            core = np.flatnonzero(sel)[len(np.flatnonzero(sel)) // 4: 3 * len(np.flatnonzero(sel)) // 4]
+            idx = np.flatnonzero(sel)
+            core = idx[len(idx) // 4: 3 * len(idx) // 4]
             assert np.nanmedian(cal[core] - w["bit_size_in"]) > 1.5, (name, wo)
             rhob = las[w["curves"]["rhob_g_cc"]][core]
             assert np.nanmedian(rhob - t["rhob_g_cc"].to_numpy()[core]) < -0.05, (name, wo)

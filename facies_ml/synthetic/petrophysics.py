@@ -42,7 +42,8 @@ def wyllie_slowness(volumes: Mapping[str, np.ndarray], dt: Mapping[str, float]) 
     return sum(np.asarray(v, dtype=float) * dt[k] for k, v in volumes.items())
 
 
-def neutron_porosity(volumes: Mapping[str, np.ndarray], hydrogen: Mapping[str, float]) -> np.ndarray:
+def neutron_porosity(volumes: Mapping[str, np.ndarray], hydrogen: Mapping[str, float]
+                     ) -> np.ndarray:
     """Apparent neutron porosity (v/v, limestone units) as a linear mix of component responses."""
     return sum(np.asarray(v, dtype=float) * hydrogen[k] for k, v in volumes.items())
 

@@ -68,7 +68,8 @@ def log_curves(truth: dict[str, np.ndarray], log_cfg: dict[str, Any], mud: dict[
     out["pe"] = out["pe"] - log_cfg["washout_density_loss"] * enl * (out["pe"] - mud["pe"])
     n = len(cal)
     gr = gr_scale * out["gr"] + gr_offset
-    out["gr"] = gr + nz["gr_poisson_scale"] * np.sqrt(np.clip(gr, 1.0, None)) * rng.standard_normal(n)
+    counting = nz["gr_poisson_scale"] * np.sqrt(np.clip(gr, 1.0, None))
+    out["gr"] = gr + counting * rng.standard_normal(n)
     out["rt"] = out["rt"] * 10.0 ** (nz["rt_log10"] * rng.standard_normal(n))
     for key in ("rhob", "nphi", "pe", "dt", "k", "u", "th"):
         out[key] = out[key] + nz[key] * rng.standard_normal(n)
@@ -107,7 +108,8 @@ def add_null_gaps(curves: dict[str, np.ndarray], keys: list[str], log_cfg: dict[
     lo, hi = log_cfg["null_gaps_per_well"]
     for _ in range(int(rng.integers(lo, hi + 1))):
         key = keys[int(rng.integers(len(keys)))]
-        length = int(rng.integers(log_cfg["null_gap_samples"][0], log_cfg["null_gap_samples"][1] + 1))
+        g_lo, g_hi = log_cfg["null_gap_samples"]
+        length = int(rng.integers(g_lo, g_hi + 1))
         i0 = int(rng.integers(20, max(21, n - length - 20)))
         curves[key][i0:i0 + length] = np.nan
         gaps.append((key, i0, i0 + length))
