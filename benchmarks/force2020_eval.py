@@ -88,15 +88,40 @@ def load_force_well(path: Path, config: Config) -> tuple[str, pd.DataFrame, np.n
     return str(names[0]), curves, y
 
 
-def load_wells(config: Config, data_dir: Path | None = None
+def load_force_well_project(path: Path, config: Config
+                            ) -> tuple[str, pd.DataFrame, np.ndarray]:
+    """Like :func:`load_force_well` but the curves come through the project's intake
+    (``facies_ml.wells.read_table``: alias table, units, cleaning); labels are read from the
+    same CSV and placed on the intake depth grid at the nearest sample within half a step."""
+    from facies_ml.wells import read_table
+
+    fc = config.section("force2020")
+    name, _, y_raw = load_force_well(path, config)
+    wells = read_table(path, config, well_column=fc["well_column"],
+                       depth_column=fc["depth_column"], depth_unit="m")
+    if len(wells) != 1:
+        raise InputError(f"expected one well, intake returned {len(wells)}", file=str(path))
+    keep = [r for r in fc["columns"].values() if r in wells[0].curves.columns]
+    curves = wells[0].curves[keep].copy()
+    curves.attrs["well"] = name
+    depth_raw = pd.to_numeric(pd.read_csv(path, usecols=[fc["depth_column"]])
+                              [fc["depth_column"]]).to_numpy(float)
+    labels = pd.Series(y_raw, index=depth_raw).sort_index()
+    y = labels.reindex(curves.index, method="nearest", tolerance=config.step / 2)
+    return name, curves, y.fillna(-1).to_numpy(int)
+
+
+def load_wells(config: Config, data_dir: Path | None = None, reader: str = "csv"
                ) -> list[tuple[str, pd.DataFrame, np.ndarray]]:
-    """All FORCE wells of ``data_dir`` in file-name order."""
+    """All FORCE wells of ``data_dir`` in file-name order. ``reader``: "csv" reads the columns
+    named in ``force2020.columns`` directly; "project" uses the project intake."""
     d = Path(data_dir or config.section("force2020")["data_dir"])
     skip = {config.section("force2020")["penalty_matrix"]}
     files = sorted(f for f in d.glob("*.csv") if f.name not in skip)
     if not files:
         raise InputError("no CSV files found", file=str(d))
-    return [load_force_well(f, config) for f in files]
+    load = load_force_well_project if reader == "project" else load_force_well
+    return [load(f, config) for f in files]
 
 
 def _scores(y: np.ndarray, pred: np.ndarray, cost: np.ndarray) -> dict[str, float]:
@@ -200,11 +225,13 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--folds", type=int, default=None, help="evaluate only the first N folds")
     ap.add_argument("--n-estimators", type=int, default=None)
     ap.add_argument("--train-every", type=int, default=1)
+    ap.add_argument("--reader", choices=["csv", "project"], default="csv",
+                    help="csv: read the CSV columns directly; project: facies_ml.wells intake")
     ap.add_argument("--json", default="force2020_eval_results.json")
     args = ap.parse_args(argv)
     try:
         config = load_config(args.config)
-        wells = load_wells(config)
+        wells = load_wells(config, reader=args.reader)
         names = [w for w, _, _ in wells]
         result = evaluate(config, wells, names[:args.folds] if args.folds else None,
                           n_estimators=args.n_estimators, train_every=args.train_every,
