@@ -1,6 +1,6 @@
 """Tables (CSV / Parquet), folders of wells, and the open FORCE 2020 dataset.
 
-FORCE 2020 facts used below are from /work/shared/data/force2020/SOURCE.md: one CSV per well,
+FORCE 2020 facts used below are from shared/data/force2020/SOURCE.md: one CSV per well,
 columns WELL, DEPT (m, regular 0.152 m grid), ..., CALI, BS, RDEP, RHOB, GR, SGR, NPHI, PEF,
 DTC; empty cell = LAS null; 32/2-1 has 6059 rows and curves CALI BS RSHA RMED RDEP RHOB DRHO
 GR NPHI PEF DTC DTS ROP ROPA.
@@ -19,7 +19,10 @@ from facies_ml.config import load_config
 from facies_ml.errors import InputError
 from facies_ml.wells import read_table, read_wells
 
-FORCE = Path("/work/shared/data/force2020")
+# shared/ sits beside the repository (as in CI); /work/shared is the development location
+FORCE = next((p for p in (Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020",
+                          Path("/work/shared/data/force2020")) if p.is_dir()),
+             Path("/work/shared/data/force2020"))
 FT = 0.3048  # exact, international foot
 
 
