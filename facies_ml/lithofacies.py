@@ -59,7 +59,8 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
                  min_child_samples: int = 20, subsample: float = 0.8,
                  colsample_bytree: float = 0.8, reg_lambda: float = 1.0,
                  class_weight: str | None = "balanced", early_stopping_rounds: int = 40,
-                 validation_fraction: float = 0.2, n_jobs: int = 2, random_state: int = 0) -> None:
+                 validation_fraction: float = 0.2, n_jobs: int = 2, random_state: int = 0,
+                 max_bin: int = 63) -> None:
         self.n_estimators = n_estimators
         self.learning_rate = learning_rate
         self.num_leaves = num_leaves
@@ -72,6 +73,7 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
         self.validation_fraction = validation_fraction
         self.n_jobs = n_jobs
         self.random_state = random_state
+        self.max_bin = max_bin
 
     # ------------------------------------------------------------------ internals
     def _params(self, n_present: int) -> dict[str, Any]:
@@ -85,7 +87,7 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
             "feature_fraction": float(self.colsample_bytree), "lambda_l2": float(self.reg_lambda),
             "num_threads": int(self.n_jobs), "seed": seed, "bagging_seed": seed,
             "feature_fraction_seed": seed, "data_random_seed": seed, "deterministic": True,
-            "force_row_wise": True, "verbosity": -1,
+            "force_row_wise": True, "verbosity": -1, "max_bin": int(self.max_bin),
         }
 
     def _weights(self, y_local: np.ndarray, n_present: int) -> np.ndarray | None:

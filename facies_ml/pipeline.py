@@ -16,6 +16,7 @@ Predictions are probabilistic and must be reviewed by a qualified geoscientist.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -90,7 +91,17 @@ class FaciesPipeline:
             y_facies.append(lab["lithofacies"].fillna(UNLABELLED).to_numpy(int))
             y_tract.append(lab["systems_tract"].fillna(UNLABELLED).to_numpy(int))
             groups.append(np.full(len(X), w.name, dtype=object))
-        X_all = pd.concat(frames, axis=0, ignore_index=True, sort=False)
+        # Drop features that only a minority of the training wells carry (e.g. spectral gamma
+        # in two of five wells): a model leaning on them would serve few offset wells.
+        coverage = float(settings.get("min_well_coverage", 0.0))
+        counts: dict[str, int] = {}
+        for X in frames:
+            for col in X.columns[X.notna().any().to_numpy()]:
+                counts[col] = counts.get(col, 0) + 1
+        keep = [c for c in frames[0].columns.union(pd.Index(list(counts)), sort=False)
+                if counts.get(c, 0) >= coverage * len(frames)]
+        self.dropped_features_ = sorted(set(counts) - set(keep))
+        X_all = pd.concat(frames, axis=0, ignore_index=True, sort=False).reindex(columns=keep)
         self.feature_names_ = list(X_all.columns)
         yf = np.concatenate(y_facies)
         yt = np.concatenate(y_tract)
@@ -103,7 +114,7 @@ class FaciesPipeline:
         self.facies_model_ = LithofaciesClassifier(**params).fit(
             X_all[has_f], yf[has_f], groups=g[has_f], n_classes=n_facies)
         self.subset_models_ = SubsetModels(
-            lambda: LithofaciesClassifier(**params), X_all[has_f], yf[has_f], g[has_f],
+            partial(LithofaciesClassifier, **params), X_all[has_f], yf[has_f], g[has_f],
             n_classes=n_facies)
 
         self.rules_ = load_rules(cfg.path("sequence_rules"))
@@ -118,7 +129,7 @@ class FaciesPipeline:
             self.tract_model_ = LithofaciesClassifier(**tract_params).fit(
                 X_all[has_t], yt[has_t], groups=g[has_t], n_classes=len(self.tract_names_))
             self.tract_subset_models_ = SubsetModels(
-                lambda: LithofaciesClassifier(**tract_params), X_all[has_t], yt[has_t], g[has_t],
+                partial(LithofaciesClassifier, **tract_params), X_all[has_t], yt[has_t], g[has_t],
                 n_classes=len(self.tract_names_))
             counts = np.bincount(yt[has_t], minlength=len(self.tract_names_)).astype(float)
             self.tract_prior_ = (counts + 1.0) / (counts + 1.0).sum()
@@ -156,10 +167,11 @@ class FaciesPipeline:
         if self.gr_normalizer_ is not None:
             well = self.gr_normalizer_.transform(well)
         X = build_features(well.curves, well.step, cfg.section("features"), self.feature_reference_)
-        missing = [f for f in self.feature_names_ if f not in X.columns]
+        present = set(X.columns[X.notna().any().to_numpy()])
+        missing = [f for f in self.feature_names_ if f not in present]
         if missing:
             model, model_name = self.subset_models_.model_for(
-                [f for f in self.feature_names_ if f in X.columns])
+                [f for f in self.feature_names_ if f in present], well=well.name)
         else:
             model, model_name = self.facies_model_, "full"
         Xm = X.reindex(columns=model.feature_names_in_)
@@ -185,7 +197,7 @@ class FaciesPipeline:
             tract_model = self.tract_model_
             if missing:
                 tract_model, _ = self.tract_subset_models_.model_for(
-                    [f for f in self.feature_names_ if f in X.columns])
+                    [f for f in self.feature_names_ if f in present], well=well.name)
             tract_X = X.reindex(columns=tract_model.feature_names_in_)
             tract_post = np.clip(tract_model.predict_proba(tract_X), 1e-9, 1.0)
             raw_path = tract_post.argmax(axis=1)
