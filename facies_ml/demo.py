@@ -28,6 +28,38 @@ from facies_ml.store import save_version
 DEMO_WELLS = Path(__file__).resolve().parent.parent / "synthetic_wells"
 
 
+CORE_ROLES = ("gr_api", "rt_ohmm", "rhob_g_cc", "nphi_v_v", "pe_b_e", "dtc_us_ft", "cali_in",
+              "bs_in")
+
+
+def intake_line(well: Any) -> str:
+    """Compact intake summary: depth unit handling, missing roles, unit conversions, bad hole,
+    despiked/out-of-range counts and the core depth shift."""
+    i = well.intake
+    parts = [f"{well.name}: {i.get('n_samples', len(well.curves))} samples, file in "
+             f"{well.original_depth_unit}" + (f" -> converted to {well.depth_unit}"
+                                               if well.original_depth_unit != well.depth_unit else "")]
+    missing = [r for r in CORE_ROLES if r not in well.roles]
+    if missing:
+        parts.append("missing " + ", ".join(missing))
+    conv = [f"{v['mnemonic']} {v['converted'].split(' (')[0]}" for v in i.get("roles", {}).values()
+            if "(none)" not in v.get("converted", "(none)")]
+    if conv:
+        parts.append("converted " + ", ".join(conv))
+    if i.get("bad_hole_samples"):
+        parts.append(f"washout: {i['bad_hole_samples']} bad-hole samples "
+                     f"({i.get('bad_hole_reference', 'caliper')}), density/neutron/PE nulled there")
+    spikes = sum((i.get("despiked") or {}).values())
+    oor = sum((i.get("out_of_range") or {}).values())
+    if spikes or oor:
+        parts.append(f"{spikes} spikes removed, {oor} out-of-range values nulled")
+    if "depth_shift" in i:
+        d = i["depth_shift"]
+        parts.append(f"core-to-log shift {d['shift']:+.2f} {d.get('unit', well.depth_unit)} "
+                     f"(r={d['correlation']:.2f}, {'applied' if d['applied'] else 'NOT applied'})")
+    return "; ".join(parts)
+
+
 def score_against_truth(pred: WellPrediction, truth_path: Path, facies_labels: list[str],
                         tract_names: list[str]) -> dict[str, Any]:
     """Demo only: compare a prediction with the generator's true answer for that well."""
@@ -85,10 +117,7 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
           f"({', '.join(w.name for w in project.cored)}), {len(project.uncored)} offset wells "
           f"({', '.join(w.name for w in project.uncored)})")
     for w in project.wells:
-        notes = "; ".join(w.intake.get("notes", [])[:3])
-        print(f"  intake {w.name}: unit {w.original_depth_unit} -> {w.depth_unit}, roles "
-              f"{len(w.roles)}, bad-hole samples {w.intake.get('bad_hole_samples', 0)}"
-              + (f"; {notes}" if notes else ""))
+        print(f"  intake {intake_line(w)}")
 
     print("\n1) Leave-one-well-out evaluation over the cored wells (each well held out in turn):")
     metrics, _ = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)

@@ -341,6 +341,9 @@ def rank_core_candidates(predictions: list[WellPrediction], facies_labels: list[
         mean_ent = float(np.mean(ent[target]))
         reasons = [f"mean facies entropy {mean_ent:.2f} over {int(target.sum())} target samples",
                    f"{oor:.1%} of target samples outside the training envelope"]
+        top = p.info.get("out_of_range_top_features") or {}
+        if top and oor > 0:
+            reasons.append("mostly in " + ", ".join(f"{k} ({v:.0%})" for k, v in top.items()))
         if p.model_used != "full":
             reasons.append(f"served by a reduced-curve model ({p.model_used})")
         rows.append({"well": p.well.name, "score": mean_ent + oor, "mean_entropy": mean_ent,

@@ -143,7 +143,10 @@ class FaciesPipeline:
                 self.rules_, prior_count=float(seq_cfg.get("prior_count", 1.0)),
                 emission_weight=float(seq_cfg.get("emission_weight", 1.0)),
             ).fit(seqs, step=cfg.step, depth_unit=cfg.working_unit)
-        self.envelope_ = FeatureEnvelope().fit(X_all)
+        env = cfg.section("applicability")
+        self.envelope_ = FeatureEnvelope(float(env.get("lower_quantile", 0.005)),
+                                         float(env.get("upper_quantile", 0.995)),
+                                         int(env.get("min_features", 1))).fit(X_all)
         self.training_wells_ = [w.name for w in labelled]
         return self
 
@@ -189,7 +192,10 @@ class FaciesPipeline:
             if col in X:
                 table["organic_proxy_toc_wt_pct"] = X[col].to_numpy(float)
                 break
-        out_flag = self.envelope_.flag(X.reindex(columns=self.feature_names_))
+        X_model = X.reindex(columns=self.feature_names_)
+        out_flag = self.envelope_.flag(X_model)
+        outside = self.envelope_.summary(X_model)
+        top_outside = dict(sorted(outside.items(), key=lambda kv: -kv[1])[:3])
         table["out_of_range"] = out_flag
         surfaces: list[Any] = []
         viol_raw = viol = 0
@@ -222,5 +228,6 @@ class FaciesPipeline:
             well=well, table=table, surfaces=surfaces, model_used=model_name,
             out_of_range_fraction=float(np.mean(out_flag)) if len(out_flag) else 0.0,
             rule_violations_raw=viol_raw, rule_violations=viol,
-            info={"features_missing": missing},
+            info={"features_missing": missing,
+                  "out_of_range_top_features": {k: round(v, 3) for k, v in top_outside.items()}},
         )

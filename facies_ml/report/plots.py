@@ -139,7 +139,8 @@ def well_section(pred: WellPrediction, facies_labels: list[str], tract_names: li
         handles += [Patch(color=style.colour(style.tracts, t, i), label=t)
                     for i, t in enumerate(tract_names)]
     fig.legend(handles=handles, loc="lower center", ncol=min(len(handles), 10), fontsize=7)
-    fig.suptitle(f"{well.name} — predicted lithofacies and systems tracts (model {pred.model_used})",
+    model = pred.model_used.split(" (")[0]
+    fig.suptitle(f"{well.name} — predicted lithofacies and systems tracts (model {model})",
                  fontsize=10)
     fig.text(0.5, 0.035, FOOTER, ha="center", fontsize=7, style="italic")
     fig.subplots_adjust(bottom=0.09, top=0.91, wspace=0.08)
