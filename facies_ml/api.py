@@ -281,3 +281,35 @@ def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path
             "champion_after": read_registry(model_dir)["champion"], "promoted": promote,
             "reason": reason, "comparison": rows, "new_wells": [w.name for w in new_wells],
             "champion_mean_f1": champ_mean, "challenger_mean_f1": chal_mean}
+
+
+def learning_curve_report(wells_path: str | Path, core_path: str | Path, out_dir: str | Path,
+                          config: Config | str | Path | None = None,
+                          core_gamma_path: str | Path | None = None, repeats: int | None = None,
+                          progress: Progress = None) -> pd.DataFrame:
+    """Held-out scores vs number of cored training wells; writes learning_curve.csv/.png."""
+    from facies_ml.evaluation import learning_curve
+    from facies_ml.report.plots import Style, learning_curve_plot
+
+    cfg = _config(config)
+    project = load_project(wells_path, core_path, cfg, core_gamma_path)
+    curve = learning_curve(project.cored, project.labels, cfg, repeats=repeats, progress=progress)
+    out_dir = Path(out_dir)
+    write_table(curve, out_dir / "learning_curve.csv")
+    learning_curve_plot(curve, Style(cfg.path("plot_style")), out_dir / "learning_curve.png")
+    return curve
+
+
+def rank_cores(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path | None = None,
+               exclude: list[str] | None = None) -> pd.DataFrame:
+    """Rank uncored wells by what a core would teach the serving model (core_next_ranking.csv)."""
+    from facies_ml.evaluation import rank_core_candidates
+
+    pipe, _ = load_version(model_dir)
+    wells, failures = read_wells(Path(wells_path), pipe.config, on_error="collect")
+    skip = set(exclude or []) | set(getattr(pipe, "training_wells_", []))
+    preds = predict_wells(pipe, [w for w in wells if w.name not in skip], failures)
+    ranking = rank_core_candidates(preds, pipe.config.facies.labels)
+    if out_dir is not None:
+        write_table(ranking, Path(out_dir) / "core_next_ranking.csv")
+    return ranking

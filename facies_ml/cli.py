@@ -75,6 +75,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--model-dir", required=True)
     p.add_argument("--serve", metavar="VERSION", help="make VERSION the serving model")
 
+    p = sub.add_parser("learning-curve", help="held-out scores vs number of cored wells")
+    p.add_argument("--wells", required=True)
+    _add_core(p)
+    p.add_argument("--out", required=True)
+    p.add_argument("--repeats", type=int, help="random subsets per size (default from config)")
+    _add_config(p)
+
+    p = sub.add_parser("rank-cores", help="rank uncored wells by what a core there would teach")
+    p.add_argument("--model-dir", required=True)
+    p.add_argument("--wells", required=True)
+    p.add_argument("--out", help="folder for core_next_ranking.csv")
+
     p = sub.add_parser("demo", help="evaluate, train and predict on the bundled demo basin")
     p.add_argument("--out", default="demo_output")
     p.add_argument("--wells", help="demo basin folder (default: bundled synthetic_wells/)")
@@ -130,6 +142,22 @@ def run(args: argparse.Namespace) -> int:
             print(f"now serving {args.serve}")
         for row in list_versions(args.model_dir):
             print(json.dumps(row))
+    elif args.command == "learning-curve":
+        curve = api.learning_curve_report(args.wells, args.core, args.out, args.config,
+                                          args.core_gamma, args.repeats, progress=_progress)
+        agg = curve.groupby("n_training_wells")[["lithofacies_f1_macro", "systems_tract_accuracy"]]
+        print(f"{'training wells':>15}{'facies_F1':>12}{'sd':>8}{'tract_acc':>12}{'sd':>8}")
+        mean, sd = agg.mean(), agg.std().fillna(0.0)
+        for n in mean.index:
+            print(f"{n:>15d}{mean.loc[n, 'lithofacies_f1_macro']:>12.3f}"
+                  f"{sd.loc[n, 'lithofacies_f1_macro']:>8.3f}"
+                  f"{mean.loc[n, 'systems_tract_accuracy']:>12.3f}"
+                  f"{sd.loc[n, 'systems_tract_accuracy']:>8.3f}")
+        print(f"wrote {Path(args.out) / 'learning_curve.csv'} and learning_curve.png")
+    elif args.command == "rank-cores":
+        ranking = api.rank_cores(args.model_dir, args.wells, args.out)
+        for row in ranking.itertuples():
+            print(f"{row.rank}. {row.well}: score {row.score:.3f} ({row.reasons})")
     elif args.command == "demo":
         from facies_ml.demo import run_demo
 
