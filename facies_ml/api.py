@@ -245,12 +245,19 @@ def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path
     from facies_ml.evaluation import score_well
 
     champ_folds = (manifest.get("metrics") or {}).get("wells", {})
+    old_cored = [w for w in project.cored if w.name in old_wells]
+    if len(old_cored) >= 2 and any(w.name not in champ_folds for w in old_cored):
+        # the champion's own held-out folds were not recorded: recompute them with the
+        # champion's settings on the champion's training wells
+        champ_metrics, _ = leave_one_well_out(old_cored, project.labels, champion.config,
+                                              progress=progress)
+        champ_folds = champ_metrics["wells"]
     rows = []
     for w in project.cored:
         chal = metrics["wells"][w.name]
         if w.name in old_wells:
             champ_f1 = (champ_folds.get(w.name) or {}).get("lithofacies_f1_macro")
-            basis = "held-out fold (champion's recorded metrics)"
+            basis = "same held-out fold (well left out of both)"
         else:
             champ_f1 = score_well(champion.predict_well(w), project.labels[w.name],
                                   champion)["lithofacies_f1_macro"]

@@ -153,3 +153,36 @@ def test_module_entry_point_runs():
                           "--wells", "/nonexist", "--out", "/tmp/x"], capture_output=True,
                          text=True, check=False)
     assert res.returncode == 2 and "Traceback" not in res.stderr and "error:" in res.stderr
+
+
+def test_retrain_with_a_new_cored_well(tiny_basin, fast_config, tmp_path, capsys):
+    core = pd.read_csv(_core(tiny_basin))
+    wells = sorted(core["well"].unique())
+    new_well = wells[-1]
+    old = tmp_path / "core_old.csv"
+    core[core["well"] != new_well].to_csv(old, index=False)
+    model_dir = tmp_path / "models"
+    assert main(["train", "--wells", str(tiny_basin), "--core", str(old), "--model-dir",
+                 str(model_dir), "--config", str(fast_config)]) == 0
+    capsys.readouterr()
+    rc = main(["retrain", "--model-dir", str(model_dir), "--wells", str(tiny_basin), "--core",
+               str(_core(tiny_basin)), "--config", str(fast_config)])
+    assert rc == 0
+    out = capsys.readouterr().out
+    assert new_well in out and "new well, champion never saw it" in out
+    assert out.count("same held-out fold") == len(wells) - 1
+    verdict = [line for line in out.splitlines() if line.startswith(("PROMOTED", "KEPT CHAMPION"))]
+    assert len(verdict) == 1
+    registry = json.loads((model_dir / "registry.json").read_text())
+    assert registry["versions"] == ["v001", "v002"]
+    promoted = verdict[0].startswith("PROMOTED")
+    assert registry["champion"] == ("v002" if promoted else "v001")
+    # --force always promotes
+    rc = main(["retrain", "--model-dir", str(model_dir), "--wells", str(tiny_basin), "--core",
+               str(_core(tiny_basin)), "--config", str(fast_config), "--force"])
+    assert rc == 0
+    assert json.loads((model_dir / "registry.json").read_text())["champion"] == "v003"
+    capsys.readouterr()
+    assert main(["models", "--model-dir", str(model_dir), "--serve", "v001"]) == 0
+    rows = [json.loads(x) for x in capsys.readouterr().out.splitlines()[1:]]
+    assert [r["champion"] for r in rows] == [True, False, False]

@@ -1,0 +1,107 @@
+"""Offset-well deliverables: tops table vs in-memory surfaces, plots with missing curves,
+landing windows, and Dask (reference engine) results identical to the serial run."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from facies_ml.api import load_project
+from facies_ml.batch import list_well_files, run_batch
+from facies_ml.config import load_config
+from facies_ml.pipeline import FaciesPipeline
+from facies_ml.report.landing import landing_summary
+from facies_ml.report.outputs import write_tops
+from facies_ml.report.plots import Style, correlation_panel, well_section
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), file signature
+
+
+@pytest.fixture(scope="module")
+def fitted(tiny_basin, fast_config):
+    cfg = load_config(fast_config)
+    project = load_project(tiny_basin, tiny_basin / "core_intervals.csv", cfg)
+    pipe = FaciesPipeline(cfg).fit(project.cored, project.labels)
+    return pipe, project
+
+
+def test_tops_table_matches_in_memory_surfaces(fitted, tmp_path):
+    pipe, project = fitted
+    preds = [pipe.predict_well(w) for w in project.wells]
+    path = write_tops([(p.well.name, p.well.depth_unit, p.surfaces) for p in preds],
+                      tmp_path / "tops.csv")
+    tops = pd.read_csv(path, comment="#")
+    expected = [(p.well.name, s.kind, s.depth, s.depth_p10, s.depth_p90, s.confidence)
+                for p in preds for s in p.surfaces]
+    assert len(tops) == len(expected) > 0
+    for row, exp in zip(tops.itertuples(), expected, strict=True):
+        assert (row.well, row.surface) == exp[:2]
+        assert row.depth == pytest.approx(exp[2], abs=1e-3)
+        assert row.depth_p10 == pytest.approx(exp[3], abs=1e-3)
+        assert row.depth_p90 == pytest.approx(exp[4], abs=1e-3)
+        assert row.confidence == pytest.approx(exp[5], abs=1e-3)
+        assert row.depth_p10 <= row.depth <= row.depth_p90
+
+
+def test_plots_for_a_well_missing_curves(fitted, tmp_path):
+    pipe, project = fitted
+    well = project.uncored[0] if project.uncored else project.wells[0]
+    stripped = type(well)(**{**well.__dict__})
+    stripped.curves = well.curves.drop(columns=[c for c in ("rhob_g_cc", "nphi_v_v", "rt_ohmm",
+                                                            "pe_b_e") if c in well.curves])
+    pred = pipe.predict_well(stripped)
+    assert pred.model_used != "full"
+    style = Style(pipe.config.path("plot_style"))
+    p1 = well_section(pred, pipe.config.facies.labels, pipe.tract_names_, style,
+                      tmp_path / "section.png")
+    p2 = correlation_panel([pred, pipe.predict_well(well)], pipe.tract_names_, style,
+                           tmp_path / "panel.png")
+    for p in (p1, p2):
+        assert p.read_bytes()[:8] == PNG_SIGNATURE and p.stat().st_size > 5000
+
+
+def test_landing_window_inside_target(fitted):
+    pipe, project = fitted
+    pred = pipe.predict_well(project.wells[0])
+    settings = pipe.config.section("landing")
+    table = landing_summary(pred, settings)
+    assert len(table) >= 1
+    depth = pred.table.index.to_numpy(float)
+    target = np.isin(pred.table["systems_tract_label"], settings["target_tracts"])
+    for row in table.itertuples():
+        sel = (depth >= row.top) & (depth <= row.base)
+        assert row.gross_target_thickness == pytest.approx(target[sel].sum() * pred.well.step)
+        if row.best_window_top is not None and row.gross_target_thickness > 2 * settings["window_length"]:
+            win = (depth >= row.best_window_top) & (depth <= row.best_window_base)
+            # the best window by the configured score lies mostly in the TST + EHST target
+            assert target[win].mean() > 0.5
+
+
+def test_dask_local_cluster_matches_serial(fitted, tiny_basin, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    pipe, _ = fitted
+    files = list_well_files(tiny_basin)[:3]
+    serial = run_batch(pipe, files, tmp_path / "serial", progress=False)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1",
+                                  dashboard_address=None, processes=True) as cluster:
+        remote = run_batch(pipe, files, tmp_path / "dask", scheduler=cluster.scheduler_address,
+                           progress=False)
+    assert [r.well for r in serial] == [r.well for r in remote]
+    for a, b in zip(serial, remote, strict=True):
+        assert a.failure is None and b.failure is None
+        assert [(s.kind, s.depth, s.depth_p10, s.depth_p90) for s in a.surfaces] == \
+               [(s.kind, s.depth, s.depth_p10, s.depth_p90) for s in b.surfaces]
+        sa = (tmp_path / "serial" / f"{a.well}.csv").read_bytes()
+        sb = (tmp_path / "dask" / f"{b.well}.csv").read_bytes()
+        assert sa == sb
+
+
+def test_joblib_matches_serial(fitted, tiny_basin, tmp_path):
+    pipe, _ = fitted
+    files = list_well_files(tiny_basin)[:2]
+    serial = run_batch(pipe, files, tmp_path / "s", progress=False)
+    parallel = run_batch(pipe, files, tmp_path / "p", n_jobs=2, progress=False)
+    for a, b in zip(serial, parallel, strict=True):
+        assert (tmp_path / "s" / f"{a.well}.csv").read_bytes() == \
+               (tmp_path / "p" / f"{b.well}.csv").read_bytes()
