@@ -1,0 +1,93 @@
+"""Basin-scale prediction benchmark: N generated wells x S samples, end to end.
+
+Prints samples/s, a per-stage time breakdown (read + condition, predict, write) and peak RSS
+(this process and its worker processes). Not a test: it only prints figures.
+
+The generator's forward model is run for a few template wells of S samples; the remaining
+wells are byte copies under new names (reading, conditioning, prediction and writing are
+still done for every file). Usage::
+
+    python benchmarks/bench_basin.py --wells 1000 --samples 10000 --jobs 2
+"""
+
+from __future__ import annotations
+
+import argparse
+import re
+import resource
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+from facies_ml.api import load_project
+from facies_ml.batch import list_well_files, run_batch
+from facies_ml.config import load_config
+from facies_ml.pipeline import FaciesPipeline
+from facies_ml.synthetic import generate_basin
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--wells", type=int, default=1000)
+    ap.add_argument("--samples", type=int, default=10_000)
+    ap.add_argument("--templates", type=int, default=6)
+    ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--keep", action="store_true", help="keep the temporary folder")
+    args = ap.parse_args()
+
+    work = Path(tempfile.mkdtemp(prefix="facies_bench_"))
+    try:
+        t0 = time.perf_counter()
+        cfg = load_config()
+        demo = REPO / "synthetic_wells"
+        project = load_project(demo, demo / "core_intervals.csv", cfg, demo / "core_gamma.csv")
+        pipe = FaciesPipeline(cfg).fit(project.cored, project.labels)
+        t_fit = time.perf_counter() - t0
+
+        t0 = time.perf_counter()
+        tpl = work / "templates"
+        generate_basin(tpl, n_wells=max(2, args.templates), n_cored=1, seed=99,
+                       samples_per_well=args.samples)
+        templates = sorted(tpl.glob("*.las"))
+        wells_dir = work / "wells"
+        wells_dir.mkdir()
+        for i in range(args.wells):
+            src = templates[i % len(templates)]
+            text = src.read_text()
+            name = f"QM-B{i:04d}"
+            text = re.sub(r"^(\s*WELL\s*\.)[^:]*:", rf"\g<1>  {name} :", text, count=1, flags=re.M)
+            (wells_dir / f"{name}.las").write_text(text)
+        t_gen = time.perf_counter() - t0
+
+        files = list_well_files(wells_dir)
+        t0 = time.perf_counter()
+        results = run_batch(pipe, files, work / "out", n_jobs=args.jobs, progress=False)
+        wall = time.perf_counter() - t0
+        ok = [r for r in results if r.failure is None]
+        n_samples = sum(int(r.intake.get("n_samples", 0)) for r in ok)
+        stages = {k: sum(r.timings.get(k, 0.0) for r in ok)
+                  for k in ("read_condition_s", "predict_s", "write_s")}
+        rss_self = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+        rss_children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+        print(f"model fit on the demo cored wells: {t_fit:.1f} s; inputs generated in {t_gen:.1f} s")
+        print(f"wells predicted: {len(ok)} of {len(files)} ({len(results) - len(ok)} failures)")
+        print(f"samples: {n_samples:,}  wall: {wall:.1f} s  throughput: {n_samples / wall:,.0f} samples/s "
+              f"({args.jobs} worker(s))")
+        total = sum(stages.values())
+        for k, v in stages.items():
+            print(f"  {k:<18} {v:8.1f} s summed over workers ({v / max(total, 1e-9):.0%})")
+        print(f"peak RSS: main process {rss_self:.0f} MB, largest worker {rss_children:.0f} MB")
+        print(f"targets: wall < 300 s -> {'met' if wall < 300 else 'NOT met'}; "
+              f"RSS < 1024 MB -> {'met' if max(rss_self, rss_children) < 1024 else 'NOT met'}")
+    finally:
+        if args.keep:
+            print(f"kept {work}")
+        else:
+            shutil.rmtree(work, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
