@@ -30,6 +30,7 @@ import numpy as np
 from facies_ml.errors import InputError
 
 _DEFAULT_BLOCK = 256
+_FB_BLOCK = 256
 
 
 @dataclass(frozen=True, eq=False)
@@ -313,7 +314,11 @@ def viterbi(log_start: np.ndarray, log_trans: np.ndarray, log_emit: np.ndarray, 
 
 def _forward_backward(log_start: np.ndarray, log_trans: np.ndarray, log_emit: np.ndarray,
                       state_map: np.ndarray, n_out: int) -> tuple[np.ndarray, float]:
-    """Scaled forward-backward; emissions per output group, posteriors summed per group."""
+    """Dense scaled forward-backward, one Python step per sample (reference, slow).
+
+    Emissions per output group, posteriors summed per group. Kept as the plain textbook
+    recursion (Rabiner 1989, scaled form) for the benchmark's before/after comparison.
+    """
     T = log_emit.shape[0]
     S = log_start.shape[0]
     shift = log_emit.max(axis=1)
@@ -346,20 +351,283 @@ def _forward_backward(log_start: np.ndarray, log_trans: np.ndarray, log_emit: np
     return post, float(np.log(c).sum() + shift.sum())
 
 
+# ---------------------------------------------------------------- chain forward-backward
+#
+# Log-space sum-product on the collapsed chain. Notation (decoding order, t = 0..T-1):
+# ``e`` emissions shifted by their row maximum, ``la[t, k]`` log forward of the last sub-state
+# of tract k, ``I[t, k]`` log of the mass entering tract k at t (before the emission of t),
+# ``lb[t, k]`` log backward of the last sub-state. Pass-through sub-states are delay lines:
+# mass entering k at u reaches the last sub-state at v = u + m_k - 1 multiplied by the
+# emissions of u..v-1, so only the n last sub-states need a recursion. Every value is kept
+# relative to the cumulative emission of its own tract (the delay line is then constant), and
+# the cumulative sums restart at every time block, so magnitudes stay block-sized.
+#
+# Blocks of time are swept side by side (one numpy operation per step serves every block).
+# The forward (and backward) recursion is linear, so a block started from any vector parallel
+# to its true start (equal up to a constant in log space) gives the true values up to that
+# constant. Blocks after the first start from a short burn-in over the samples before them,
+# are checked against the end of the block below and re-swept until parallel to a tolerance
+# (Hilbert projective distance: spread of the log ratios), as in the rank-convergence scheme
+# of the Viterbi decoder above.
+
+
+@dataclass(frozen=True)
+class _Chain:
+    """Recursion tables of one direction: mixing lists and delay-line read offsets."""
+
+    log_stay: np.ndarray     # (n,)
+    mix: np.ndarray          # (n, K) source tract of each mixing term
+    mix_w: np.ndarray        # (n, K) log weight of each mixing term (-inf = unused)
+    delay: np.ndarray        # (n,) rows back from the current row that a tract reads
+    hist: int                # history rows kept before a block
+
+
+def _lse_mix(x: np.ndarray, ch: _Chain) -> np.ndarray:
+    """``out[..., k] = logsumexp_j(x[..., mix[k, j]] + mix_w[k, j])``."""
+    K = ch.mix.shape[1]
+    if K == 1:
+        return x[..., ch.mix[:, 0]] + ch.mix_w[:, 0]
+    if K == 2:
+        return np.logaddexp(x[..., ch.mix[:, 0]] + ch.mix_w[:, 0],
+                            x[..., ch.mix[:, 1]] + ch.mix_w[:, 1])
+    return np.logaddexp.reduce(x[..., ch.mix] + ch.mix_w, axis=-1)
+
+
+def _sweep(ch: _Chain, backward: bool, E: np.ndarray, L0: np.ndarray, H0: np.ndarray,
+           first: np.ndarray, first_value: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Run one direction over time-major segments ``E (R, Q, n)`` from starts ``L0 (Q, n)``,
+    ``H0 (hist, Q, n)``; returns (``L`` per step (R, Q, n), history ``H`` (hist + R, Q, n)),
+    relative to the segment's cumulative emission. Segments whose flag in ``first`` is set
+    take ``first_value`` as their state after step 0 (the true sequence start).
+
+    Forward: ``H`` holds entry masses; L_t = logaddexp(L_{t-1} + stay, H[t - (m - 1)]).
+    Backward (``E`` reversed in time): ``H`` holds past L; L_r = logaddexp(L_{r-1} + stay,
+    mix(H[r - m])).
+    """
+    R, Q, n = E.shape
+    M = ch.hist
+    cum = np.zeros((R + 1, Q, n))
+    np.cumsum(E, axis=0, out=cum[1:])
+    H = np.empty((M + R, Q, n))
+    H[:M] = H0
+    Lout = np.empty((R, Q, n))
+    flat = H.reshape(-1)
+    ar = np.arange(n)
+    read = ((M - ch.delay)[None, :] * Q + np.arange(Q)[:, None]) * n + ar[None, :]
+    row = Q * n
+    q0 = np.flatnonzero(first)
+    L = L0
+    a = ch.log_stay
+    for tau in range(R):
+        cm = cum[tau]
+        if backward:
+            y = flat.take(read + tau * row)
+            y += cm
+            x = _lse_mix(y, ch)
+            x -= cm
+            L = np.logaddexp(L + a, x)
+            if tau == 0 and q0.size:
+                L[q0] = first_value
+            H[M + tau] = L
+        else:
+            x = _lse_mix(L + cm, ch)
+            np.subtract(x, cm, out=H[M + tau])
+            L = np.logaddexp(L + a, flat.take(read + tau * row))
+            if tau == 0 and q0.size:
+                L[q0] = first_value
+        Lout[tau] = L
+    return Lout, H
+
+
+def _spread(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Row-wise Hilbert distance of log vectors: max - min of a - b over finite entries
+    (+inf when the -inf patterns differ; 0 when both are all -inf)."""
+    fa, fb = np.isfinite(a), np.isfinite(b)
+    same = (fa == fb).all(axis=1)
+    with np.errstate(invalid="ignore"):
+        d = np.where(fa & fb, a - b, np.nan)
+        s = np.fmax.reduce(d, axis=1) - np.fmin.reduce(d, axis=1)
+    s = np.where(np.isnan(s), 0.0, s)
+    return np.where(same, s, np.inf)
+
+
+def _offset(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Row-wise mean of a - b over entries finite in both (0 when there are none)."""
+    both = np.isfinite(a) & np.isfinite(b)
+    with np.errstate(invalid="ignore"):
+        d = np.where(both, a - b, 0.0)
+    return d.sum(axis=1) / np.maximum(both.sum(axis=1), 1)
+
+
+def _blocked(ch: _Chain, backward: bool, e: np.ndarray, first_value: np.ndarray,
+             H_first: np.ndarray, block: int) -> tuple[np.ndarray, np.ndarray]:
+    """Sweep ``e (T, n)`` (already in sweep order) in blocks from the exact start
+    (``first_value`` after step 0, history ``H_first``); returns ``L (T, n)`` and ``H (T, n)``
+    on one common scale (block 0's, so the values are exact log probabilities). Forward: L + e
+    is the log forward of the last sub-states and H the log entry mass; backward: L is the
+    log backward."""
+    T, n = e.shape
+    M = ch.hist
+    B = max(int(block), 2 * M + 2, 8)
+    if T <= 2 * B:
+        B = T
+    P = -(-T // B)
+    Tp = P * B
+    E = np.zeros((Tp, n))
+    E[:T] = e
+    Eb = E.reshape(P, B, n)
+    tot = Eb.sum(axis=1)                                   # (P, n) emission of each block
+    mask = (np.arange(M)[:, None] >= (M - ch.delay)[None, :])  # history rows a block reads
+    scale = float(np.abs(np.cumsum(Eb, axis=1)).max(initial=0.0))
+    tol = 1e-10 + 1e-14 * scale
+
+    def carry(Lend: np.ndarray, Hend: np.ndarray, tot_: np.ndarray) -> tuple[np.ndarray, ...]:
+        # state at the end of a segment, re-expressed relative to the next segment's start
+        return Lend + tot_, Hend + tot_[:, None, :]
+
+    def flat_state(L: np.ndarray, H: np.ndarray) -> np.ndarray:
+        return np.concatenate([L, H[:, mask]], axis=1)
+
+    def normalise(L: np.ndarray, H: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        mx = np.max(flat_state(L, H), axis=1, initial=-np.inf)
+        mx = np.where(np.isfinite(mx), mx, 0.0)
+        return L - mx[:, None], H - mx[:, None, None]
+
+    L_used = np.zeros((P, n))
+    H_used = np.zeros((P, M, n))
+    L_used[0] = -np.inf
+    H_used[0] = H_first
+    first = np.zeros(P, dtype=bool)
+    first[0] = True
+    if P > 1:                                  # burn-in: the W samples below each block
+        W = min(B, max(2 * M + 2, B // 4))
+        seg = np.ascontiguousarray(Eb[:-1, B - W:].transpose(1, 0, 2))
+        Lb, Hb = _sweep(ch, backward, seg, np.zeros((P - 1, n)), np.zeros((M, P - 1, n)),
+                        np.zeros(P - 1, dtype=bool), first_value)
+        Lc, Hc = carry(Lb[-1], Hb[W:].transpose(1, 0, 2), seg.sum(axis=0))
+        L_used[1:], H_used[1:] = normalise(Lc, Hc)
+    Lrel = np.empty((P, B, n))
+    Hrel = np.empty((P, B, n))
+    Lend = np.empty((P, n))
+    Hend = np.empty((P, M, n))
+
+    def run(blocks: np.ndarray) -> None:
+        seg = np.ascontiguousarray(Eb[blocks].transpose(1, 0, 2))
+        Ls, Hs = _sweep(ch, backward, seg, L_used[blocks], H_used[blocks].transpose(1, 0, 2),
+                        first[blocks], first_value)
+        Lrel[blocks] = Ls.transpose(1, 0, 2)
+        Hrel[blocks] = Hs[M:].transpose(1, 0, 2)
+        Lend[blocks] = Ls[-1]
+        Hend[blocks] = Hs[B:].transpose(1, 0, 2)
+
+    run(np.arange(P))
+    for _ in range(P):
+        if P == 1:
+            break
+        Lc, Hc = carry(Lend[:-1], Hend[:-1], tot[:-1])
+        gap = _spread(flat_state(Lc, Hc), flat_state(L_used[1:], H_used[1:]))
+        redo = np.flatnonzero(~(gap <= tol)) + 1
+        if redo.size == 0:
+            break
+        L_used[redo], H_used[redo] = normalise(Lc[redo - 1], Hc[redo - 1])
+        run(redo)
+    # one common scale: block p's values are offset from block p-1's by the carry gap
+    z = np.zeros(P)
+    if P > 1:
+        Lc, Hc = carry(Lend[:-1], Hend[:-1], tot[:-1])
+        z[1:] = np.cumsum(_offset(flat_state(Lc, Hc), flat_state(L_used[1:], H_used[1:])))
+    cum = np.zeros((P, B + 1, n))
+    np.cumsum(Eb, axis=1, out=cum[:, 1:])
+    cm = cum[:, :-1]
+    off = cm + z[:, None, None]
+    return (Lrel + off).reshape(Tp, n)[:T], (Hrel + off).reshape(Tp, n)[:T]
+
+
+def _chain_tables(log_stay: np.ndarray, log_switch: np.ndarray,
+                  m: np.ndarray) -> tuple[_Chain, _Chain]:
+    """Forward tables (mix over predecessors, read entries m - 1 rows back) and backward
+    tables (mix over successors of values m rows back)."""
+    pred, pw = _predecessors(log_switch)
+    succ, sw = _predecessors(log_switch.T)
+    M = int(m.max())
+    fwd = _Chain(log_stay=log_stay, mix=pred, mix_w=pw, delay=m - 1, hist=M - 1)
+    bwd = _Chain(log_stay=log_stay, mix=succ, mix_w=sw, delay=m.copy(), hist=M)
+    return fwd, bwd
+
+
+def _chain_forward_backward(log_start: np.ndarray, log_stay: np.ndarray, log_switch: np.ndarray,
+                            m: np.ndarray, e: np.ndarray, block: int = _FB_BLOCK
+                            ) -> tuple[np.ndarray, float]:
+    """Tract posteriors and log-likelihood of the chain model (see the section comment)."""
+    T, n = e.shape
+    shift = e.max(axis=1)
+    es = e - shift[:, None]
+    fwd, bwd = _chain_tables(log_stay, log_switch, m)
+    Lf, ent = _blocked(fwd, False, es, log_start, np.full((fwd.hist, n), -np.inf), block)
+    la = Lf + es                               # log forward of the last sub-states
+    Lb, _ = _blocked(bwd, True, es[::-1], np.zeros(n), np.zeros((bwd.hist, n)), block)
+    lb = Lb[::-1]                              # log backward of the last sub-states
+    M = int(m.max())
+    # W[u, k]: log P(emissions, tract k entered at u) = ent_u + sum e[u..v] + lb_v, v = u+m_k-1
+    # (beyond the last sample the path ends inside the chain: lb = 0, sum cut at T-1).
+    es_pad = np.vstack([es, np.zeros((M, n))])
+    lb_pad = np.vstack([lb, np.zeros((M, n))])
+    S = np.zeros((T, n))
+    for j in range(M):
+        sel = m > j
+        S[:, sel] += es_pad[j:j + T, sel]
+    W = ent + S + lb_pad[np.arange(T)[:, None] + (m - 1)[None, :], np.arange(n)[None, :]]
+    chain = m > 1
+    W[:, ~chain] = -np.inf
+    tail_ok = np.arange(T)[:, None] >= (T - m + 1)[None, :]
+    log_z = float(np.logaddexp.reduce(np.concatenate([la[-1], W[tail_ok]])))
+    if not np.isfinite(log_z):
+        alive = np.isfinite(la)
+        fin = np.isfinite(ent) & chain[None, :]
+        for j in range(M - 1):
+            sel = m - 1 > j
+            alive[j:, sel] |= fin[:T - j, sel]
+        r = int(np.flatnonzero(~alive.any(axis=1))[0]) if not alive.any(axis=1).all() else T - 1
+        raise InputError("no state path is possible under the rules at this sample "
+                         "(forward probability is zero)", row=r)
+    post = np.exp(la + lb - log_z)
+    pw = np.exp(W - log_z)
+    for j in range(M - 1):                     # in sub-state j of a chain entered at t - j
+        sel = m - 1 > j
+        post[j:, sel] += pw[:T - j, sel]
+    post /= post.sum(axis=1, keepdims=True)
+    return post, log_z + float(shift.sum())
+
+
 def forward_backward(log_start: np.ndarray, log_trans: np.ndarray,
                      log_emit: np.ndarray) -> tuple[np.ndarray, float]:
-    """Posterior state probabilities (T, n) and the sequence log-likelihood of a plain HMM."""
+    """Posterior state probabilities (T, n) and the sequence log-likelihood of a plain HMM.
+
+    ``log_emit (T, n)`` in decoding order (up-section for tracts); -inf transitions are
+    forbidden. Same recursion as :func:`forward_backward_durations` with chains of length 1.
+    """
     ls, lt = _check_model(log_start, log_trans)
     n = ls.shape[0]
     e = _as_emit(log_emit, n)
-    return _forward_backward(ls, lt, e, np.arange(n), n)
+    sw = lt.copy()
+    np.fill_diagonal(sw, -np.inf)
+    return _chain_forward_backward(ls, np.diag(lt).copy(), sw, np.ones(n, dtype=int), e)
 
 
 def forward_backward_durations(log_start: np.ndarray, log_stay: np.ndarray,
                                log_switch: np.ndarray, min_samples: np.ndarray,
                                log_emit: np.ndarray) -> tuple[np.ndarray, float]:
-    """Tract posteriors (T, n) of the chain-expanded model, summed over sub-states."""
-    n = np.asarray(min_samples).shape[0]
+    """Tract posteriors (T, n) of the chain-expanded model, summed over sub-states, and the
+    sequence log-likelihood. Arguments as :func:`viterbi_durations` (decoding order)."""
+    m = np.asarray(min_samples, dtype=int)
+    n = m.shape[0]
+    a = np.asarray(log_stay, dtype=float)
+    ls = np.asarray(log_start, dtype=float)
+    sw = np.array(log_switch, dtype=float)
+    if ls.shape != (n,) or a.shape != (n,) or sw.shape != (n, n):
+        raise InputError("duration model arrays do not agree on the number of tracts")
+    if (m < 1).any():
+        raise InputError("minimum durations must be at least 1 sample")
     e = _as_emit(log_emit, n)
-    x = expand_durations(log_start, log_stay, log_switch, min_samples)
-    return _forward_backward(x.log_start, x.log_trans, e, x.state_tract, n)
+    np.fill_diagonal(sw, -np.inf)
+    return _chain_forward_backward(ls, a, sw, m, e)
