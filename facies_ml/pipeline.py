@@ -207,7 +207,13 @@ class FaciesPipeline:
             tract_X = X.reindex(columns=tract_model.feature_names_in_)
             tract_post = np.clip(tract_model.predict_proba(tract_X), 1e-9, 1.0)
             raw_path = tract_post.argmax(axis=1)
-            loglik = np.log(tract_post) - np.log(self.tract_prior_)[None, :]
+            loglik = np.log(tract_post)
+            emission = str(cfg.section("sequence").get("emission", "scaled_likelihood"))
+            if emission == "scaled_likelihood":  # posterior / prior (Bourlard & Morgan, 1994)
+                loglik = loglik - np.log(self.tract_prior_)[None, :]
+            elif emission != "posterior":
+                raise InputError(f"sequence.emission must be 'scaled_likelihood' or 'posterior', "
+                                 f"not {emission!r}")
             result = self.sequence_model_.decode(loglik[::-1])  # decode up-section
             path = result.path[::-1]
             post = result.posterior[::-1]
