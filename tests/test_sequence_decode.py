@@ -10,6 +10,7 @@ from hmmlearn.base import BaseHMM
 
 from facies_ml.errors import InputError
 from facies_ml.sequence.decode import (
+    _chain_forward_backward,
     expand_durations,
     forward_backward,
     forward_backward_durations,
@@ -151,6 +152,73 @@ def test_duration_posteriors_match_hmmlearn_on_expanded_model() -> None:
     post, ll = forward_backward_durations(ls, stay, sw, m, emit)
     np.testing.assert_allclose(post, summed, atol=1e-9)
     assert ll == pytest.approx(ref.score(emit[:, x.state_tract]), rel=1e-10)
+
+
+def _summed_reference(x, emit: np.ndarray) -> tuple[np.ndarray, float]:
+    ref = _reference(np.exp(x.log_start), np.exp(x.log_trans))
+    post = ref.predict_proba(emit[:, x.state_tract])
+    n = int(x.state_tract.max()) + 1
+    summed = np.stack([post[:, x.state_tract == k].sum(axis=1) for k in range(n)], axis=1)
+    return summed, ref.score(emit[:, x.state_tract])
+
+
+@pytest.mark.parametrize("seed,m,T,scale", [
+    (14, [8, 5, 10, 3], 6000, 8.0),      # strong emissions: row spreads of tens of nats
+    (15, [12, 1, 6, 9], 5000, 25.0),     # very strong (hundreds of nats between tracts)
+    (16, [1, 1, 1, 1], 8000, 15.0)])     # plain chain (every tract min 1 sample)
+def test_long_strong_duration_posteriors_match_hmmlearn(seed, m, T, scale) -> None:
+    # Reference: hmmlearn 0.3.3 predict_proba / score on the expanded model (log-space
+    # implementation). T >= 5000 with strong emissions checks the blocked sweeps' stability.
+    rng = np.random.default_rng(seed)
+    m = np.asarray(m)
+    ls, stay, sw = _duration_model(rng, m)
+    x = expand_durations(ls, stay, sw, m)
+    truth = np.repeat(rng.integers(0, m.size, T // 40 + 1), 40)[:T]
+    emit = rng.normal(size=(T, m.size)) * scale
+    emit[np.arange(T), truth] += scale
+    summed, ref_ll = _summed_reference(x, emit)
+    post, ll = forward_backward_durations(ls, stay, sw, m, emit)
+    assert np.abs(post - summed).max() < 1e-9
+    assert ll == pytest.approx(ref_ll, rel=1e-10)
+    # the sequence model overrides the per-sample argmax somewhere (the check has teeth)
+    assert (post.argmax(axis=1) != emit.argmax(axis=1)).mean() > 0.01
+
+
+@pytest.mark.parametrize("block", [8, 16, 40, 100000])
+def test_duration_posteriors_do_not_depend_on_the_block_size(block) -> None:
+    # Reference: hmmlearn predict_proba on the expanded model; small blocks force many
+    # blocks, burn-ins and re-sweeps (block 100000 = one sequential sweep).
+    rng = np.random.default_rng(17)
+    m = np.array([6, 3, 9, 2])
+    ls, stay, sw = _duration_model(rng, m)
+    x = expand_durations(ls, stay, sw, m)
+    emit = rng.normal(size=(3000, 4)) * 1.5
+    summed, ref_ll = _summed_reference(x, emit)
+    post, ll = _chain_forward_backward(ls, stay, np.where(np.eye(4, dtype=bool), -np.inf, sw),
+                                       m, emit, block)
+    np.testing.assert_allclose(post, summed, atol=1e-9)
+    assert ll == pytest.approx(ref_ll, rel=1e-10)
+
+
+def test_long_plain_forward_backward_matches_hmmlearn() -> None:
+    # Reference: hmmlearn predict_proba / score, T = 6000, emissions sd 10 nats.
+    rng = np.random.default_rng(18)
+    start, trans = _random_model(rng, 4, 0.4)
+    emit = rng.normal(size=(6000, 4)) * 10.0
+    ref = _reference(start, trans)
+    post, ll = forward_backward(_log(start), _log(trans), emit)
+    np.testing.assert_allclose(post, ref.predict_proba(emit), atol=1e-9)
+    assert ll == pytest.approx(ref.score(emit), rel=1e-10)
+
+
+def test_dead_end_names_the_row() -> None:
+    # state 0 -> state 1 only; state 1 has no way on: no path lasts beyond sample 1
+    lt = _log(np.array([[0.0, 1.0], [0.0, 0.0]]))
+    with pytest.raises(InputError, match="row 2"):
+        forward_backward(_log(np.array([1.0, 0.0])), lt, np.zeros((6, 2)))
+    with pytest.raises(InputError, match="agree on the number of tracts"):
+        forward_backward_durations(np.zeros(3), np.zeros(2), np.zeros((3, 3)), [1, 1, 1],
+                                   np.zeros((4, 3)))
 
 
 def test_bad_emissions_name_the_row() -> None:

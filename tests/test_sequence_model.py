@@ -78,6 +78,26 @@ def test_decode_equals_hmmlearn_style_dense_decode_of_expanded_model(fitted) -> 
     np.testing.assert_allclose(res.posterior.sum(axis=1), 1.0)
 
 
+def test_decode_posteriors_equal_hmmlearn_on_expanded_model(fitted) -> None:
+    # Reference: hmmlearn 0.3.3 predict_proba on fitted.expanded() (32 sub-states), summed per
+    # tract; T = 5000 samples, emissions sd 4 nats.
+    from hmmlearn.base import BaseHMM
+
+    class Ref(BaseHMM):
+        def _compute_log_likelihood(self, X: np.ndarray) -> np.ndarray:
+            return X
+
+    x = fitted.expanded()
+    ref = Ref(n_components=x.log_start.size, params="", init_params="", implementation="log")
+    ref.startprob_, ref.transmat_ = np.exp(x.log_start), np.exp(x.log_trans)
+    rng = np.random.default_rng(19)
+    ll = rng.normal(size=(5000, 4)) * 4.0
+    post = ref.predict_proba(ll[:, x.state_tract])
+    summed = np.stack([post[:, x.state_tract == k].sum(axis=1) for k in range(4)], axis=1)
+    res = fitted.decode(ll)
+    assert np.abs(res.posterior - summed).max() < 1e-9
+
+
 def _run_lengths(path: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     starts = np.r_[0, np.flatnonzero(np.diff(path)) + 1]
     return path[starts], np.diff(np.r_[starts, path.size])

@@ -30,7 +30,8 @@ import numpy as np
 from facies_ml.errors import InputError
 
 _DEFAULT_BLOCK = 256
-_FB_BLOCK = 256
+_FB_BLOCK = 128                 # forward-backward time block (grows as sqrt(T) for long input)
+_FB_BURN = 1.0                  # burn-in before each block, as a share of the block length
 
 
 @dataclass(frozen=True, eq=False)
@@ -468,7 +469,7 @@ def _blocked(ch: _Chain, backward: bool, e: np.ndarray, first_value: np.ndarray,
     log backward."""
     T, n = e.shape
     M = ch.hist
-    B = max(int(block), 2 * M + 2, 8)
+    B = max(int(block), 2 * M + 2, 8, int(np.sqrt(T)))
     if T <= 2 * B:
         B = T
     P = -(-T // B)
@@ -500,7 +501,7 @@ def _blocked(ch: _Chain, backward: bool, e: np.ndarray, first_value: np.ndarray,
     first = np.zeros(P, dtype=bool)
     first[0] = True
     if P > 1:                                  # burn-in: the W samples below each block
-        W = min(B, max(2 * M + 2, B // 4))
+        W = min(B, max(2 * M + 2, int(B * _FB_BURN)))
         seg = np.ascontiguousarray(Eb[:-1, B - W:].transpose(1, 0, 2))
         Lb, Hb = _sweep(ch, backward, seg, np.zeros((P - 1, n)), np.zeros((M, P - 1, n)),
                         np.zeros(P - 1, dtype=bool), first_value)
