@@ -3,7 +3,9 @@
 Prints figures only (no assertions). Run: /work/venv/bin/python benchmarks/bench_decoder.py
 Models: (a) 4 plain tract states; (b) 4 tracts x 20 sub-states (minimum-duration chains,
 80 states), decoded by our chain decoder and by hmmlearn's dense decoder of the same
-expanded model. Emissions: a blocky synthetic truth plus Gaussian noise, seed 0.
+expanded model. Emissions: a blocky synthetic truth plus Gaussian noise, seed 0. Forward-backward is also
+timed with the previous per-sample dense recursion (``_forward_backward``, "before") on the
+first ``--old-samples`` samples, so before/after and ours/hmmlearn ratios come from one run.
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ import numpy as np
 from hmmlearn.base import BaseHMM
 
 from facies_ml.sequence.decode import (
+    _forward_backward,
     expand_durations,
     forward_backward,
     forward_backward_durations,
@@ -52,6 +55,7 @@ def main() -> None:
     ap.add_argument("--samples", type=int, default=100_000)
     ap.add_argument("--substates", type=int, default=20)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--old-samples", type=int, default=20_000)
     args = ap.parse_args()
     T, rep = args.samples, args.repeat
     rng = np.random.default_rng(0)
@@ -79,10 +83,16 @@ def main() -> None:
     print(f"    viterbi hmmlearn {T / t_ref:12,.0f} samples/s  ({t_ref * 1e3:.1f} ms)")
     print(f"    speed ratio ours/hmmlearn {t_ref / t_ours:.2f}; paths equal: "
           f"{np.array_equal(p_ours, p_ref)}; log-prob diff {lp_ours - lp_ref:.2e}")
-    t_fb, (post, ll) = timed(lambda: forward_backward(ls, lA, emit), 1)
-    t_fbr, post_r = timed(lambda: ref.predict_proba(emit), 1)
-    print(f"    fwd-bwd  ours     {T / t_fb:12,.0f} samples/s; hmmlearn predict_proba "
-          f"{T / t_fbr:,.0f} samples/s; max |dP| {np.abs(post - post_r).max():.1e}")
+    To = min(T, args.old_samples)
+    t_fb, (post, ll) = timed(lambda: forward_backward(ls, lA, emit), rep)
+    t_fbr, post_r = timed(lambda: ref.predict_proba(emit), rep)
+    t_old, _ = timed(lambda: _forward_backward(ls, lA, emit[:To], np.arange(n), n), 1)
+    print(f"    fwd-bwd ours          {T / t_fb:12,.0f} samples/s  ({t_fb * 1e3:.1f} ms)")
+    print(f"    fwd-bwd hmmlearn      {T / t_fbr:12,.0f} samples/s  (predict_proba)")
+    print(f"    fwd-bwd before (dense per-sample loop) {To / t_old:,.0f} samples/s on {To}")
+    print(f"    ratios: ours/hmmlearn {t_fbr / t_fb:.2f}; ours/before "
+          f"{(T / t_fb) / (To / t_old):.1f}; max |dP| vs hmmlearn "
+          f"{np.abs(post - post_r).max():.1e}")
 
     # (b) expanded 4 tracts x m sub-states
     m = np.full(n, args.substates)
@@ -107,8 +117,19 @@ def main() -> None:
     t_g, (p_g, _) = timed(lambda: viterbi(x.log_start, x.log_trans, E_exp), 1)
     print(f"    viterbi ours (generic sparse on the {S}x{S} matrix) {T / t_g:,.0f} samples/s; "
           f"equal: {np.array_equal(p_g, p_dr)}")
-    t_fd, (post_d, _) = timed(lambda: forward_backward_durations(ls, lst, lsw, m, emit), 1)
-    print(f"    fwd-bwd ours (expanded) {T / t_fd:12,.0f} samples/s  ({t_fd:.2f} s)")
+    t_fd, (post_d, ll_d) = timed(lambda: forward_backward_durations(ls, lst, lsw, m, emit), rep)
+    t_fdr, post_dr = timed(lambda: ref_x.predict_proba(E_exp), 1)
+    t_fdo, _ = timed(lambda: _forward_backward(x.log_start, x.log_trans, emit[:To],
+                                               x.state_tract, n), 1)
+    summed = np.stack([post_dr[:, x.state_tract == k].sum(axis=1) for k in range(n)], axis=1)
+    print(f"    fwd-bwd ours (chain)    {T / t_fd:12,.0f} samples/s  ({t_fd * 1e3:.1f} ms)")
+    print(f"    fwd-bwd hmmlearn dense  {T / t_fdr:12,.0f} samples/s  (predict_proba, "
+          f"{t_fdr:.2f} s)")
+    print(f"    fwd-bwd before (dense per-sample loop) {To / t_fdo:,.0f} samples/s on {To}")
+    print(f"    ratios: ours/hmmlearn {t_fdr / t_fd:.2f}; ours/before "
+          f"{(T / t_fd) / (To / t_fdo):.1f}; max |dP| vs hmmlearn "
+          f"{np.abs(post_d - summed).max():.1e}")
+    print(f"    decode = viterbi + posteriors (chain): {T / (t_d + t_fd):,.0f} samples/s")
 
 
 if __name__ == "__main__":
