@@ -48,6 +48,47 @@ def test_loader_matches_source_md_counts() -> None:
     assert "pe_b_e" not in c81.columns
 
 
+def test_bayes_decision_minimises_expected_penalty() -> None:
+    # Bayes decision rule for a cost matrix (standard decision theory): choose
+    # argmin_j sum_i p_i A[i, j]. Checked against a brute-force loop on the published
+    # competition matrix (penalty_matrix.csv, SOURCE.md) and random probabilities.
+    mod = _module()
+    cost = np.loadtxt(DATA / "penalty_matrix.csv", delimiter=",", skiprows=1,
+                      usecols=range(1, 13))
+    rng = np.random.default_rng(0)
+    proba = rng.dirichlet(np.full(12, 0.3), size=200)
+    got = mod.bayes_decision(proba, cost)
+    want = [min(range(12), key=lambda j, p=p: sum(p[i] * cost[i, j] for i in range(12)))
+            for p in proba]
+    np.testing.assert_array_equal(got, want)
+    # Worked case: 0.45 sandstone / 0.55 limestone -> argmax says limestone, but the expected
+    # penalty of each pick (row = true class) decides; compute it by hand from the matrix.
+    p = np.zeros(12)
+    p[0], p[5] = 0.45, 0.55
+    exp_pen = [0.45 * cost[0, j] + 0.55 * cost[5, j] for j in range(12)]
+    assert mod.bayes_decision(p[None, :], cost)[0] == int(np.argmin(exp_pen))
+
+
+def test_gr_normalization_uses_training_wells_only() -> None:
+    # Two-point GR normalization (common practice): after mapping, the held-out well's GR
+    # P5/P95 equal the P5/P95 pooled over the TRAINING wells; the reference must not move when
+    # the held-out well's GR is altered (no leakage). Wells from SOURCE.md.
+    mod = _module()
+    cfg = load_config(mod.FORCE_CONFIG)
+    wells = {n: c for n, c, _ in mod.load_wells(cfg)}
+    train = [wells["16/2-6"], wells["31/3-4"]]
+    test = wells["32/2-1"]
+    out = mod.normalize_gr_fold(train, [test], cfg.step)[0]
+    pooled = np.concatenate([c["gr_api"].dropna().to_numpy() for c in train])
+    np.testing.assert_allclose(np.nanpercentile(out["gr_api"], [5, 95]),
+                               np.percentile(pooled, [5, 95]), rtol=1e-9)
+    hot = test.copy()
+    hot["gr_api"] = hot["gr_api"] * 3.0 + 40.0
+    out_hot = mod.normalize_gr_fold(train, [hot], cfg.step)[0]
+    np.testing.assert_allclose(out_hot["gr_api"], out["gr_api"], rtol=1e-9, atol=1e-9)
+    assert out.index.equals(test.index) and out.attrs["well"] == "32/2-1"
+
+
 def test_cheap_leave_one_well_out_floor() -> None:
     # Two folds, at most 60 trees, every 4th training sample. Measured with this exact run:
     # 16/2-16 penalty score -0.566, accuracy 0.803, macro-F1 0.432; 16/2-6 -0.685, 0.777,
