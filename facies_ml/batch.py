@@ -57,6 +57,25 @@ def list_well_files(path: str | Path, exclude: Iterable[str] = ()) -> list[Path]
                   if p.is_file() and p.suffix.lower() in WELL_SUFFIXES and p.name not in skip)
 
 
+_WORKER_PIPELINES: dict[str, FaciesPipeline] = {}
+
+
+def _worker_pipeline(pipe: FaciesPipeline) -> FaciesPipeline:
+    """The first copy of this fitted pipeline seen by this process: a worker unpickles a fresh
+    copy per task, and reusing one keeps the reduced-curve models it trained lazily."""
+    key = getattr(pipe, "fit_id_", None)
+    if key is None:
+        return pipe
+    return _WORKER_PIPELINES.setdefault(key, pipe)
+
+
+def predict_files(pipe: FaciesPipeline, paths: list[str], out_dir: str | Path | None,
+                  write_files: bool = True, keep_predictions: bool = False) -> list[list[Any]]:
+    """:func:`predict_file` over a chunk of files (one task), results per file."""
+    pipe = _worker_pipeline(pipe)
+    return [predict_file(pipe, p, out_dir, write_files, keep_predictions) for p in paths]
+
+
 def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | None,
                  write_files: bool = True, keep_predictions: bool = False) -> list[Any]:
     """Read, condition and predict every well in one file; write its outputs.
@@ -107,6 +126,9 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
     """Predict ``files`` serially (n_jobs=1), on local cores (joblib) or on a Dask cluster
     (``scheduler`` = its address, e.g. ``tcp://127.0.0.1:8786``). Results in file order."""
     bar = tqdm(total=len(files), desc="wells", unit="file", disable=not progress)
+    workers = 1 if (n_jobs == 1 and not scheduler) else max(2, n_jobs)
+    size = max(1, min(25, -(-len(files) // (workers * 4))))   # ~4 chunks per worker
+    chunks = [[str(f) for f in files[i:i + size]] for i in range(0, len(files), size)]
     out: list[list[Any]] = []
     if scheduler:
         try:
@@ -120,24 +142,25 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
             raise InputError(f"cannot reach the Dask scheduler {scheduler}: {exc}") from None
         try:
             remote_pipe = client.scatter(pipe, broadcast=True)
-            futures = [client.submit(predict_file, remote_pipe, str(f), out_dir, write_files,
-                                     keep_predictions, pure=False) for f in files]
-            for _ in as_completed(futures):
-                bar.update(1)
-            out = client.gather(futures)
+            futures = [client.submit(predict_files, remote_pipe, chunk, out_dir, write_files,
+                                     keep_predictions, pure=False) for chunk in chunks]
+            for fut in as_completed(futures):
+                bar.update(len(chunks[futures.index(fut)]))
+            out = [rows for chunk_rows in client.gather(futures) for rows in chunk_rows]
         finally:
             client.close()
     elif n_jobs == 1:
-        for f in files:
-            out.append(predict_file(pipe, f, out_dir, write_files, keep_predictions))
-            bar.update(1)
+        for chunk in chunks:
+            out.extend(predict_files(pipe, chunk, out_dir, write_files, keep_predictions))
+            bar.update(len(chunk))
     else:
         from joblib import Parallel, delayed
 
         par = Parallel(n_jobs=n_jobs, return_as="generator")
-        for res in par(delayed(predict_file)(pipe, f, out_dir, write_files, keep_predictions)
-                       for f in files):
-            out.append(res)
-            bar.update(1)
+        for chunk, res in zip(chunks, par(delayed(predict_files)(pipe, c, out_dir, write_files,
+                                                                  keep_predictions) for c in chunks),
+                              strict=True):
+            out.extend(res)
+            bar.update(len(chunk))
     bar.close()
     return [r for rows in out for r in rows]

@@ -15,6 +15,7 @@ Predictions are probabilistic and must be reviewed by a qualified geoscientist.
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass, field
 from functools import partial
 from typing import Any
@@ -148,6 +149,13 @@ class FaciesPipeline:
                                          float(env.get("upper_quantile", 0.995)),
                                          int(env.get("min_features", 1))).fit(X_all)
         self.training_wells_ = [w.name for w in labelled]
+        # Deterministic identity of this fit (training features + labels + settings); batch
+        # workers use it to keep one copy per process, with its lazily trained subset models.
+        digest = hashlib.sha256(cfg.digest().encode())
+        digest.update(pd.util.hash_pandas_object(X_all, index=False).to_numpy().tobytes())
+        digest.update(yf.tobytes())
+        digest.update(yt.tobytes())
+        self.fit_id_ = digest.hexdigest()[:16]
         return self
 
     def _tract_index_map(self) -> np.ndarray:
