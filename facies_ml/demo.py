@@ -153,6 +153,12 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
     summary["truth_scores"] = scores
     summary["model_version"] = version
 
+    explain = pd.concat([pipe.explain_well(w) for w in project.uncored], ignore_index=True)
+    write_table(explain, out / "predictions" / "explanations.csv")
+    top = explain.groupby("feature")["all"].mean().sort_values(ascending=False).head(5)
+    print("  features driving the facies calls (mean |contribution|, offset wells): "
+          + ", ".join(f"{k} {v:.2f}" for k, v in top.items()))
+
     print("\n4) Where to core next (uncored wells ranked by what a core would teach the model):")
     ranking = rank_core_candidates(preds, cfg.facies.labels)
     write_table(ranking, out / "predictions" / "core_next_ranking.csv")

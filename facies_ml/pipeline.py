@@ -245,3 +245,26 @@ class FaciesPipeline:
             info={"features_missing": missing,
                   "out_of_range_top_features": {k: round(v, 3) for k, v in top_outside.items()}},
         )
+
+    # ------------------------------------------------------------- explanation
+    def explain_well(self, well: Well, every: int = 10, top: int = 8) -> pd.DataFrame:
+        """Mean |LightGBM pred_contrib| of each feature to the predicted facies, per facies,
+        on every ``every``-th sample of the well (top ``top`` features by overall mean)."""
+        from facies_ml.lithofacies import summarize_contributions
+
+        cfg = self.config
+        if self.gr_normalizer_ is not None:
+            well = self.gr_normalizer_.transform(well)
+        X = build_features(well.curves, well.step, cfg.section("features"), self.feature_reference_)
+        present = set(X.columns[X.notna().any().to_numpy()])
+        model = self.facies_model_
+        if any(f not in present for f in self.feature_names_):
+            model, _ = self.subset_models_.model_for(
+                [f for f in self.feature_names_ if f in present], well=well.name)
+        Xm = X.reindex(columns=model.feature_names_in_).iloc[:: max(1, int(every))]
+        contrib = model.contributions(Xm)
+        pred = model.predict_proba(Xm).argmax(axis=1)
+        table = summarize_contributions(contrib, list(model.feature_names_in_), pred,
+                                        cfg.facies.labels).head(top)
+        return table.reset_index().assign(well=well.name)
+
