@@ -97,12 +97,20 @@ def write_table(frame: pd.DataFrame, path: str | Path, comment: str | None = Non
 
 
 def write_prediction_csv(pred: WellPrediction, path: str | Path) -> Path:
-    frame = prediction_frame(pred)
+    """CSV of :func:`prediction_frame` (floats rounded to 5 decimals), caution on line 1."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    frame = prediction_frame(pred).reset_index()
+    floats = frame.select_dtypes(include="float").columns
+    frame[floats] = frame[floats].round(5)
+    table = pa.Table.from_pandas(frame, preserve_index=False)
 
     def _w(tmp: Path) -> None:
-        with open(tmp, "w") as fh:
-            fh.write(f"# facies_ml {__version__} prediction for well {pred.well.name}. {CAUTION}\n")
-            frame.to_csv(fh, float_format="%.5g")
+        with open(tmp, "wb") as fh:
+            fh.write(f"# facies_ml {__version__} prediction for well {pred.well.name}. "
+                     f"{CAUTION}\n".encode())
+            pacsv.write_csv(table, fh, pacsv.WriteOptions(quoting_style="needed"))
 
     return atomic_write(path, _w)
 
@@ -137,31 +145,39 @@ def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: l
                                                    zip(facies_codes, facies_labels, strict=True))
                  + ". Systems tract codes: " + ", ".join(f"{i + 1}={t}" for i, t in
                                                          enumerate(tract_names)) + ".")
-    depth = frame.iloc[:, 0].to_numpy(float)
-    las.append_curve("DEPT", depth, unit=well.original_depth_unit.upper(), descr="depth")
-    for role in well.roles:
-        las.append_curve(role.upper()[:16], frame[role].to_numpy(float), descr=f"conditioned {role}")
-    las.append_curve("LITHO_CODE", frame["lithofacies_code"].to_numpy(float),
-                     descr="predicted lithofacies code (see ~Parameter)")
-    for lab in facies_labels:
-        las.append_curve(f"P_{lab}"[:16], frame[f"p_{lab}"].to_numpy(float),
-                         descr=f"probability of {lab}")
+    columns: list[tuple[str, str, str, np.ndarray]] = [
+        ("DEPT", well.original_depth_unit.upper(), "depth", frame.iloc[:, 0].to_numpy(float))]
+    columns += [(role.upper()[:16], "", f"conditioned {role}", frame[role].to_numpy(float))
+                for role in well.roles]
+    columns.append(("LITHO_CODE", "", "predicted lithofacies code (see ~Parameter)",
+                    frame["lithofacies_code"].to_numpy(float)))
+    columns += [(f"P_{lab}"[:16], "", f"probability of {lab}", frame[f"p_{lab}"].to_numpy(float))
+                for lab in facies_labels]
     if "systems_tract" in frame:
-        las.append_curve("TRACT_CODE", frame["systems_tract"].to_numpy(float) + 1,
-                         descr="predicted systems tract code (see ~Parameter)")
-        for name in tract_names:
-            las.append_curve(f"P_{name}"[:16], frame[f"p_{name}"].to_numpy(float),
-                             descr=f"posterior probability of {name}")
-    las.append_curve("OUT_OF_RANGE", frame["out_of_range"].to_numpy(float),
-                     descr="1 = features outside the training envelope")
+        columns.append(("TRACT_CODE", "", "predicted systems tract code (see ~Parameter)",
+                        frame["systems_tract"].to_numpy(float) + 1))
+        columns += [(f"P_{name}"[:16], "", f"posterior probability of {name}",
+                     frame[f"p_{name}"].to_numpy(float)) for name in tract_names]
+    columns.append(("OUT_OF_RANGE", "", "1 = features outside the training envelope",
+                    frame["out_of_range"].to_numpy(float)))
+    for mnemonic, unit, descr, _ in columns:
+        las.append_curve(mnemonic, np.empty(0), unit=unit, descr=descr)
+    data = np.column_stack([c[3] for c in columns])
+    data = np.where(np.isfinite(data), data, -999.25)
+    depth = data[:, 0]
+    step = float(np.median(np.diff(depth))) if len(depth) > 1 else 0.0
     for code, lab in zip(facies_codes, facies_labels, strict=True):
         las.params.append(lasio.HeaderItem(f"LITH{code}", "", lab, "lithofacies code"))
     for i, name in enumerate(tract_names):
         las.params.append(lasio.HeaderItem(f"TRACT{i + 1}", "", name, "systems tract code"))
 
     def _w(tmp: Path) -> None:
+        # lasio writes the header sections and the ~A line; the data block (same layout:
+        # one depth step per line, NULL for missing) is written by numpy, much faster.
         with open(tmp, "w") as fh:
-            las.write(fh, version=2.0, wrap=False, fmt="%.5f")
+            las.write(fh, version=2.0, wrap=False, STRT=float(depth[0]), STOP=float(depth[-1]),
+                      STEP=round(step, 6))
+            np.savetxt(fh, data, fmt="%.5f", delimiter=" ")
 
     return atomic_write(path, _w)
 
