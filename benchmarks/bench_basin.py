@@ -13,6 +13,7 @@ still done for every file). Usage::
 from __future__ import annotations
 
 import argparse
+import os
 import re
 import resource
 import shutil
@@ -27,6 +28,21 @@ from facies_ml.pipeline import FaciesPipeline
 from facies_ml.synthetic import generate_basin
 
 REPO = Path(__file__).resolve().parents[1]
+
+
+def worker_peak_rss_mb() -> float:
+    """Largest VmHWM (peak resident set) among live child processes (joblib workers), MB."""
+    me = str(os.getpid())
+    peak = 0.0
+    for status in Path("/proc").glob("[0-9]*/status"):
+        try:
+            text = status.read_text()
+        except OSError:
+            continue
+        fields = dict(line.split(":\t", 1) for line in text.splitlines() if ":\t" in line)
+        if fields.get("PPid", "").strip() == me and "VmHWM" in fields:
+            peak = max(peak, float(fields["VmHWM"].split()[0]) / 1024)
+    return peak
 
 
 def main() -> None:
@@ -71,7 +87,8 @@ def main() -> None:
         stages = {k: sum(r.timings.get(k, 0.0) for r in ok)
                   for k in ("read_condition_s", "predict_s", "write_s")}
         rss_self = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-        rss_children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+        rss_children = max(worker_peak_rss_mb(),
+                           resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024)
         print(f"model fit on the demo cored wells: {t_fit:.1f} s; inputs generated in {t_gen:.1f} s")
         print(f"wells predicted: {len(ok)} of {len(files)} ({len(results) - len(ok)} failures)")
         print(f"samples: {n_samples:,}  wall: {wall:.1f} s  throughput: {n_samples / wall:,.0f} samples/s "
