@@ -145,7 +145,7 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
         scores[p.well.name] = s
         acc = s.get("lithofacies_accuracy")
         tacc = s.get("systems_tract_accuracy")
-        print(f"  {p.well.name:<8} model {p.model_used:<28} out-of-range "
+        print(f"  {p.well.name:<8} model {p.model_used.split(' (')[0]:<24} out-of-range "
               f"{p.out_of_range_fraction:6.1%}  surfaces {len(p.surfaces):3d}  "
               f"violations {p.rule_violations}"
               + (f"  facies acc vs truth {acc:.3f}" if acc is not None else "")
