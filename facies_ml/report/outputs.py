@@ -21,6 +21,9 @@ import pandas as pd
 from facies_ml import CAUTION, __version__
 from facies_ml.pipeline import WellPrediction
 
+_UMASK = os.umask(0)
+os.umask(_UMASK)
+
 
 def atomic_write(path: str | Path, write: Callable[[Path], None]) -> Path:
     """Call ``write(tmp_path)`` then rename the temporary file onto ``path``."""
@@ -30,6 +33,7 @@ def atomic_write(path: str | Path, write: Callable[[Path], None]) -> Path:
     os.close(fd)
     try:
         write(Path(tmp))
+        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp creates 0600; outputs get the usual mode
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
