@@ -32,6 +32,8 @@ from facies_ml import __version__
 from facies_ml.errors import ModelStoreError
 
 MANIFEST_FORMAT = "facies_ml.bundle/1"
+_UMASK = os.umask(0)
+os.umask(_UMASK)
 TRACKED_PACKAGES = (
     "facies_ml", "numpy", "pandas", "scikit-learn", "lightgbm", "hmmlearn", "joblib",
 )
@@ -63,6 +65,7 @@ def _write_json_atomic(path: Path, data: Any) -> None:
             json.dump(data, fh, indent=2, sort_keys=True, default=str)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_UMASK)
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -133,6 +136,8 @@ def save_version(
             "bundle_sha256": sha256_file(bundle_path),
         }
         _write_json_atomic(tmp_dir / "manifest.json", manifest)
+        os.chmod(bundle_path, 0o666 & ~_UMASK)
+        os.chmod(tmp_dir, 0o777 & ~_UMASK)  # mkdtemp creates 0700
         os.replace(tmp_dir, model_dir / version)
     except BaseException:
         shutil.rmtree(tmp_dir, ignore_errors=True)
