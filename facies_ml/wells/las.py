@@ -6,6 +6,8 @@ import logging
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from facies_ml.config import Config
 from facies_ml.errors import InputError
 from facies_ml.wells import clean
@@ -31,6 +33,42 @@ def _value(section: Any, key: str) -> Any:
     return None if item is None else item.value
 
 
+def _read_fast(src: str) -> Any:
+    """Header by lasio, data block by numpy, for the common case (LAS 2.0, WRAP NO, space
+    delimited, every cell numeric). Returns ``None`` whenever that case does not hold, so the
+    caller falls back to lasio's full reader (which also produces its error messages)."""
+    import io
+    import re
+
+    import lasio
+
+    try:
+        las = lasio.read(src, ignore_data=True, null_policy="none", ignore_header_errors=False)
+    except Exception:  # noqa: BLE001 - the full reader will report it
+        return None
+    version = str(_value(las.version, "VERS") or "").strip()
+    wrap = str(_value(las.version, "WRAP") or "").strip().upper()
+    dlm = str(_value(las.version, "DLM") or "SPACE").strip().upper()
+    if not version.startswith("2") or wrap != "NO" or dlm not in ("", "SPACE") or not las.curves:
+        return None
+    with open(src, "rb") as fh:
+        raw = fh.read()
+    match = re.search(rb"^~A[^\n]*\n", raw, flags=re.MULTILINE)
+    if match is None or re.search(rb"^~", raw[match.end():], flags=re.MULTILINE):
+        return None
+    body = raw[match.end():]
+    if not body.strip():
+        return None
+    try:
+        data = np.loadtxt(io.BytesIO(body), dtype=float, comments="#", ndmin=2)
+    except ValueError:
+        return None
+    if data.shape[0] == 0 or data.shape[1] != len(las.curves):
+        return None
+    las.set_data(data, truncate=False)
+    return las
+
+
 def read_las_raw(path: str | Path, config: Config) -> RawWell:
     """Read one LAS file without conditioning. The first curve must be a depth index.
 
@@ -48,7 +86,9 @@ def read_las_raw(path: str | Path, config: Config) -> RawWell:
     level = lasio_log.level
     lasio_log.setLevel(logging.ERROR)  # its per-curve warnings are summarised in our intake
     try:
-        las = lasio.read(src, null_policy="none", ignore_header_errors=False, engine="normal")
+        las = _read_fast(src)
+        if las is None:
+            las = lasio.read(src, null_policy="none", ignore_header_errors=False, engine="normal")
     except Exception as exc:  # lasio raises many types on garbled text; report one line
         raise InputError(f"cannot read as LAS ({one_line(exc)})", file=src) from None
     finally:
