@@ -15,7 +15,13 @@ from typing import Any
 import pandas as pd
 
 from facies_ml import CAUTION
-from facies_ml.batch import WellResult, list_well_files, run_batch
+from facies_ml.batch import (
+    WellResult,
+    list_well_files,
+    run_batch,
+    well_result,
+    write_well_outputs,
+)
 from facies_ml.config import Config, load_config
 from facies_ml.core import align_core_labels, read_core_gamma, read_core_intervals
 from facies_ml.errors import InputError
@@ -25,9 +31,6 @@ from facies_ml.report.landing import landing_summary
 from facies_ml.report.outputs import (
     tops_frame,
     write_json,
-    write_prediction_csv,
-    write_prediction_las,
-    write_prediction_parquet,
     write_table,
     write_tops,
 )
@@ -208,19 +211,10 @@ def predict_wells(pipe: FaciesPipeline, wells: list[Well], failures: list[dict[s
 def write_predictions(pipe: FaciesPipeline, preds: list[WellPrediction],
                       failures: list[dict[str, Any]], out_dir: Path) -> dict[str, Any]:
     """Per-well files and the batch tables for in-memory predictions (used by the demo)."""
-    cfg = pipe.config
-    tracts = list(getattr(pipe, "tract_names_", []))
     results = []
     for p in preds:
-        write_prediction_csv(p, out_dir / f"{p.well.name}.csv")
-        write_prediction_las(p, out_dir / f"{p.well.name}.las", cfg.facies.codes,
-                             cfg.facies.labels, tracts)
-        write_prediction_parquet(p, out_dir / f"{p.well.name}.parquet")
-        results.append(WellResult(
-            well=p.well.name, file=p.well.source, model_used=p.model_used,
-            out_of_range_fraction=p.out_of_range_fraction, rule_violations=p.rule_violations,
-            surfaces=p.surfaces, depth_unit=p.well.depth_unit, intake=p.well.intake,
-            landing=landing_summary(p, cfg.section("landing")).to_dict("records")))
+        write_well_outputs(pipe, p, out_dir)
+        results.append(well_result(pipe, p, p.well.source))
     results += [WellResult(well=f.get("well") or "", file=f.get("file") or "",
                            failure=f.get("reason")) for f in failures]
     return write_batch_tables(results, out_dir)

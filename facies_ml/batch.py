@@ -17,7 +17,7 @@ from typing import Any
 from tqdm import tqdm
 
 from facies_ml.errors import InputError
-from facies_ml.pipeline import FaciesPipeline
+from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.landing import landing_summary
 from facies_ml.report.outputs import (
     write_prediction_csv,
@@ -57,6 +57,28 @@ def list_well_files(path: str | Path, exclude: Iterable[str] = ()) -> list[Path]
                   if p.is_file() and p.suffix.lower() in WELL_SUFFIXES and p.name not in skip)
 
 
+def write_well_outputs(pipe: FaciesPipeline, pred: WellPrediction, out_dir: str | Path) -> None:
+    """``<well>.csv``, ``<well>.las`` and ``<well>.parquet`` for one prediction."""
+    cfg = pipe.config
+    out_dir = Path(out_dir)
+    name = pred.well.name
+    write_prediction_csv(pred, out_dir / f"{name}.csv")
+    write_prediction_las(pred, out_dir / f"{name}.las", cfg.facies.codes, cfg.facies.labels,
+                         list(getattr(pipe, "tract_names_", [])))
+    write_prediction_parquet(pred, out_dir / f"{name}.parquet")
+
+
+def well_result(pipe: FaciesPipeline, pred: WellPrediction, file: str,
+                timings: dict[str, float] | None = None) -> WellResult:
+    """The small summary of one prediction sent back from a task (landing rows included)."""
+    return WellResult(
+        well=pred.well.name, file=file, model_used=pred.model_used,
+        out_of_range_fraction=pred.out_of_range_fraction, rule_violations=pred.rule_violations,
+        surfaces=pred.surfaces, depth_unit=pred.well.depth_unit, intake=pred.well.intake,
+        landing=landing_summary(pred, pipe.config.section("landing")).to_dict("records"),
+        timings=timings or {})
+
+
 _WORKER_PIPELINES: dict[str, FaciesPipeline] = {}
 
 
@@ -93,7 +115,6 @@ def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | N
     t_read = time.perf_counter() - t0
     results: list[Any] = [WellResult(well=f.get("well") or "", file=f.get("file") or str(path),
                                      failure=f.get("reason")) for f in failures]
-    tract_names = list(getattr(pipe, "tract_names_", []))
     for w in wells:
         t1 = time.perf_counter()
         try:
@@ -103,19 +124,10 @@ def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | N
             continue
         t2 = time.perf_counter()
         if write_files and out_dir is not None:
-            write_prediction_csv(pred, Path(out_dir) / f"{w.name}.csv")
-            write_prediction_las(pred, Path(out_dir) / f"{w.name}.las", cfg.facies.codes,
-                                 cfg.facies.labels, tract_names)
-            write_prediction_parquet(pred, Path(out_dir) / f"{w.name}.parquet")
-        landing = landing_summary(pred, cfg.section("landing")).to_dict("records")
-        t3 = time.perf_counter()
-        res = WellResult(
-            well=w.name, file=str(path), model_used=pred.model_used,
-            out_of_range_fraction=pred.out_of_range_fraction,
-            rule_violations=pred.rule_violations, surfaces=pred.surfaces,
-            depth_unit=w.depth_unit, intake=w.intake, landing=landing,
-            timings={"read_condition_s": t_read / max(1, len(wells)), "predict_s": t2 - t1,
-                     "write_s": t3 - t2})
+            write_well_outputs(pipe, pred, out_dir)
+        res = well_result(pipe, pred, str(path))
+        res.timings = {"read_condition_s": t_read / max(1, len(wells)), "predict_s": t2 - t1,
+                       "write_s": time.perf_counter() - t2}
         results.append((res, pred) if keep_predictions else res)
     return results
 
