@@ -148,9 +148,7 @@ def score_well(pred: WellPrediction, labels: pd.DataFrame, pipeline: FaciesPipel
         "rule_violations_raw": pred.rule_violations_raw,
     }
     if "systems_tract" in table and pipeline.tract_model_ is not None:
-        tract_map = pipeline._tract_index_map()
-        yt_raw = lab["systems_tract"].fillna(-1).to_numpy(int)
-        yt = np.where(yt_raw >= 0, tract_map[np.clip(yt_raw, 0, None)], -1)
+        yt = pipeline.tract_states(lab["systems_tract"].fillna(-1).to_numpy(int))
         has_t = yt >= 0
         smoothed = table["systems_tract"].to_numpy(int)
         raw = table["systems_tract_raw"].to_numpy(int)
@@ -231,10 +229,9 @@ def leave_one_well_out(
         pooled_f_true.append(yf[yf >= 0])
         pooled_f_pred.append(pred.table["lithofacies"].to_numpy(int)[yf >= 0])
         if "systems_tract" in pred.table:
-            tract_map = pipe._tract_index_map()
-            yt = lab["systems_tract"].fillna(-1).to_numpy(int)
+            yt = pipe.tract_states(lab["systems_tract"].fillna(-1).to_numpy(int))
             ok = yt >= 0
-            pooled_t_true.append(tract_map[yt[ok]])
+            pooled_t_true.append(yt[ok])
             pooled_t_pred.append(pred.table["systems_tract"].to_numpy(int)[ok])
             pooled_t_raw.append(pred.table["systems_tract_raw"].to_numpy(int)[ok])
     yf_t, yf_p = np.concatenate(pooled_f_true), np.concatenate(pooled_f_pred)

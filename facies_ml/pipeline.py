@@ -120,8 +120,7 @@ class FaciesPipeline:
 
         self.rules_ = load_rules(cfg.path("sequence_rules"))
         self.tract_names_ = list(self.rules_.states)
-        tract_map = self._tract_index_map()
-        yt = np.where(yt >= 0, tract_map[np.clip(yt, 0, None)], UNLABELLED)
+        yt = self.tract_states(yt)
         has_t = yt >= 0
         self.tract_model_ = None
         self.sequence_model_ = None
@@ -168,21 +167,33 @@ class FaciesPipeline:
             out.append(self.tract_names_.index(name))
         return np.asarray(out, dtype=int)
 
+    def tract_states(self, tracts: np.ndarray) -> np.ndarray:
+        """Core-file tract indices (scheme order, -1 = unlabelled) as rule-table state indices."""
+        tracts = np.asarray(tracts, dtype=int)
+        return np.where(tracts >= 0, self._tract_index_map()[np.clip(tracts, 0, None)], UNLABELLED)
+
     # --------------------------------------------------------------- prediction
+    def _well_features(self, well: Well) -> tuple[Well, pd.DataFrame, list[str], list[str]]:
+        """(GR-normalized well, its feature table, model features it has, model features it
+        lacks). A feature counts as present when it has at least one finite value."""
+        if well.depth_unit != self.config.working_unit:
+            raise InputError(f"well is in {well.depth_unit}, the model works in "
+                             f"{self.config.working_unit}", well=well.name)
+        if self.gr_normalizer_ is not None:
+            well = self.gr_normalizer_.transform(well)
+        X = build_features(well.curves, well.step, self.config.section("features"),
+                           self.feature_reference_)
+        present = set(X.columns[X.notna().any().to_numpy()])
+        have = [f for f in self.feature_names_ if f in present]
+        missing = [f for f in self.feature_names_ if f not in present]
+        return well, X, have, missing
+
     def predict_well(self, well: Well) -> WellPrediction:
         """Predict lithofacies and systems tracts for one conditioned well."""
         cfg = self.config
-        if well.depth_unit != cfg.working_unit:
-            raise InputError(f"well is in {well.depth_unit}, the model works in {cfg.working_unit}",
-                             well=well.name)
-        if self.gr_normalizer_ is not None:
-            well = self.gr_normalizer_.transform(well)
-        X = build_features(well.curves, well.step, cfg.section("features"), self.feature_reference_)
-        present = set(X.columns[X.notna().any().to_numpy()])
-        missing = [f for f in self.feature_names_ if f not in present]
+        well, X, have, missing = self._well_features(well)
         if missing:
-            model, model_name = self.subset_models_.model_for(
-                [f for f in self.feature_names_ if f in present], well=well.name)
+            model, model_name = self.subset_models_.model_for(have, well=well.name)
         else:
             model, model_name = self.facies_model_, "full"
         Xm = X.reindex(columns=model.feature_names_in_)
@@ -210,8 +221,7 @@ class FaciesPipeline:
         if self.tract_model_ is not None and self.sequence_model_ is not None:
             tract_model = self.tract_model_
             if missing:
-                tract_model, _ = self.tract_subset_models_.model_for(
-                    [f for f in self.feature_names_ if f in present], well=well.name)
+                tract_model, _ = self.tract_subset_models_.model_for(have, well=well.name)
             tract_X = X.reindex(columns=tract_model.feature_names_in_)
             tract_post = np.clip(tract_model.predict_proba(tract_X), 1e-9, 1.0)
             raw_path = tract_post.argmax(axis=1)
@@ -253,14 +263,10 @@ class FaciesPipeline:
         from facies_ml.lithofacies import summarize_contributions
 
         cfg = self.config
-        if self.gr_normalizer_ is not None:
-            well = self.gr_normalizer_.transform(well)
-        X = build_features(well.curves, well.step, cfg.section("features"), self.feature_reference_)
-        present = set(X.columns[X.notna().any().to_numpy()])
+        well, X, have, missing = self._well_features(well)
         model = self.facies_model_
-        if any(f not in present for f in self.feature_names_):
-            model, _ = self.subset_models_.model_for(
-                [f for f in self.feature_names_ if f in present], well=well.name)
+        if missing:
+            model, _ = self.subset_models_.model_for(have, well=well.name)
         Xm = X.reindex(columns=model.feature_names_in_).iloc[:: max(1, int(every))]
         contrib = model.contributions(Xm)
         pred = model.predict_proba(Xm).argmax(axis=1)
