@@ -50,19 +50,24 @@ class FeatureEnvelope:
         self.high_ = pd.Series(hi, dtype=float)
         return self
 
-    def outside_counts(self, X: pd.DataFrame) -> np.ndarray:
-        """Number of features in which each sample lies outside the envelope."""
+    def _outside(self, X: pd.DataFrame) -> tuple[list[str], np.ndarray]:
+        """(envelope features present in ``X``, boolean matrix samples x features: outside)."""
         if not hasattr(self, "low_"):
             raise InputError("the applicability envelope is not fitted")
         cols = [c for c in self.low_.index if c in X.columns]
         if not cols:
-            return np.zeros(len(X), dtype=int)
-        v = X[cols].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
-        lo = self.low_[cols].to_numpy()
-        hi = self.high_[cols].to_numpy()
+            return cols, np.zeros((len(X), 0), dtype=bool)
+        sub = X[cols]
+        if not all(pd.api.types.is_numeric_dtype(t) for t in sub.dtypes):
+            sub = sub.apply(pd.to_numeric, errors="coerce")
+        v = sub.to_numpy(dtype=float)
         with np.errstate(invalid="ignore"):
-            out = (v < lo) | (v > hi)   # NaN compares False -> not outside
-        return out.sum(axis=1)
+            out = (v < self.low_[cols].to_numpy()) | (v > self.high_[cols].to_numpy())
+        return cols, out  # NaN compares False -> not outside
+
+    def outside_counts(self, X: pd.DataFrame) -> np.ndarray:
+        """Number of features in which each sample lies outside the envelope."""
+        return self._outside(X)[1].sum(axis=1)
 
     def flag(self, X: pd.DataFrame) -> np.ndarray:
         """Boolean per sample: outside the envelope in >= ``min_features`` features."""
@@ -75,12 +80,11 @@ class FeatureEnvelope:
 
     def summary(self, X: pd.DataFrame) -> dict[str, Any]:
         """Share of samples outside the envelope, per feature (features with any outside)."""
-        cols = [c for c in self.low_.index if c in X.columns]
-        out = {}
-        for c in cols:
-            v = pd.to_numeric(X[c], errors="coerce").to_numpy(dtype=float)
-            with np.errstate(invalid="ignore"):
-                share = float(np.mean((v < self.low_[c]) | (v > self.high_[c])))
-            if share > 0:
-                out[c] = share
-        return out
+        return self.assess(X)[1]
+
+    def assess(self, X: pd.DataFrame) -> tuple[np.ndarray, dict[str, Any]]:
+        """(:meth:`flag`, :meth:`summary`) from one pass over ``X``."""
+        cols, out = self._outside(X)
+        share = out.mean(axis=0) if len(out) else np.zeros(len(cols))
+        return (out.sum(axis=1) >= self.min_features,
+                {c: float(v) for c, v in zip(cols, share, strict=True) if v > 0})

@@ -20,6 +20,7 @@ from facies_ml.errors import InputError
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.landing import landing_summary
 from facies_ml.report.outputs import (
+    prediction_arrow,
     write_prediction_csv,
     write_prediction_las,
     write_prediction_parquet,
@@ -62,10 +63,11 @@ def write_well_outputs(pipe: FaciesPipeline, pred: WellPrediction, out_dir: str 
     cfg = pipe.config
     out_dir = Path(out_dir)
     name = pred.well.name
-    write_prediction_csv(pred, out_dir / f"{name}.csv")
+    table = prediction_arrow(pred)
+    write_prediction_csv(pred, out_dir / f"{name}.csv", table)
     write_prediction_las(pred, out_dir / f"{name}.las", cfg.facies.codes, cfg.facies.labels,
                          list(getattr(pipe, "tract_names_", [])))
-    write_prediction_parquet(pred, out_dir / f"{name}.parquet")
+    write_prediction_parquet(pred, out_dir / f"{name}.parquet", table)
 
 
 def well_result(pipe: FaciesPipeline, pred: WellPrediction, file: str,
@@ -92,9 +94,12 @@ def _worker_pipeline(pipe: FaciesPipeline) -> FaciesPipeline:
 
 
 def predict_files(pipe: FaciesPipeline, paths: list[str], out_dir: str | Path | None,
-                  write_files: bool = True, keep_predictions: bool = False) -> list[list[Any]]:
-    """:func:`predict_file` over a chunk of files (one task), results per file."""
+                  write_files: bool = True, keep_predictions: bool = False,
+                  predict_threads: int | None = None) -> list[list[Any]]:
+    """:func:`predict_file` over a chunk of files (one task), results per file.
+    ``predict_threads``: LightGBM threads per prediction in this task (``None`` = as trained)."""
     pipe = _worker_pipeline(pipe)
+    pipe.set_predict_threads(predict_threads)
     return [predict_file(pipe, p, out_dir, write_files, keep_predictions) for p in paths]
 
 
@@ -140,6 +145,14 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
     bar = tqdm(total=len(files), desc="wells", unit="file", disable=not progress)
     workers = 1 if (n_jobs == 1 and not scheduler) else max(2, n_jobs)
     size = max(1, min(25, -(-len(files) // (workers * 4))))   # ~4 chunks per worker
+    threads = None  # serial: the trained thread count
+    if scheduler:
+        threads = 1  # a Dask worker runs one task per thread; each takes one core
+    elif n_jobs != 1:
+        from joblib import cpu_count
+
+        n_workers = n_jobs if n_jobs > 0 else cpu_count()
+        threads = max(1, cpu_count() // max(1, n_workers))
     chunks = [[str(f) for f in files[i:i + size]] for i in range(0, len(files), size)]
     out: list[list[Any]] = []
     if scheduler:
@@ -155,7 +168,7 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
         try:
             remote_pipe = client.scatter(pipe, broadcast=True)
             futures = [client.submit(predict_files, remote_pipe, chunk, out_dir, write_files,
-                                     keep_predictions, pure=False) for chunk in chunks]
+                                     keep_predictions, threads, pure=False) for chunk in chunks]
             for fut in as_completed(futures):
                 bar.update(len(chunks[futures.index(fut)]))
             out = [rows for chunk_rows in client.gather(futures) for rows in chunk_rows]
@@ -169,9 +182,9 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
         from joblib import Parallel, delayed
 
         par = Parallel(n_jobs=n_jobs, return_as="generator")
-        for chunk, res in zip(chunks, par(delayed(predict_files)(pipe, c, out_dir, write_files,
-                                                                  keep_predictions) for c in chunks),
-                              strict=True):
+        tasks = (delayed(predict_files)(pipe, c, out_dir, write_files, keep_predictions, threads)
+                 for c in chunks)
+        for chunk, res in zip(chunks, par(tasks), strict=True):
             out.extend(res)
             bar.update(len(chunk))
     bar.close()

@@ -172,10 +172,17 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
                              curve=str(missing[0]))
         return _numeric(X[names])
 
+    def _predict_kwargs(self) -> dict[str, Any]:
+        """Thread count for prediction: ``predict_threads`` when set (batch workers set it to
+        their share of the cores), else the training setting. Results do not depend on it."""
+        threads = getattr(self, "predict_threads", None)
+        return {"num_threads": int(threads)} if threads else {}
+
     def predict_proba(self, X: Any) -> np.ndarray:
         """Class probabilities, shape (n_samples, K); absent classes have probability 0."""
         values = self._matrix(X)
-        p = np.asarray(self.booster_.predict(values), dtype=float).reshape(len(values), -1)
+        p = np.asarray(self.booster_.predict(values, **self._predict_kwargs()),
+                       dtype=float).reshape(len(values), -1)
         out = np.zeros((len(values), len(self.classes_)))
         out[:, self.present_classes_] = p
         return out
@@ -191,7 +198,8 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
         """
         values = self._matrix(X)
         nf = len(self.feature_names_in_)
-        raw = np.asarray(self.booster_.predict(values, pred_contrib=True), dtype=float)
+        raw = np.asarray(self.booster_.predict(values, pred_contrib=True, **self._predict_kwargs()),
+                         dtype=float)
         raw = raw.reshape(len(values), len(self.present_classes_), nf + 1)
         out = np.zeros((len(values), len(self.classes_), nf + 1))
         out[:, self.present_classes_, :] = raw
@@ -221,6 +229,13 @@ class SubsetModels:
         self.models: dict[str, Any] = {}
         self.subsets: dict[str, list[str]] = {}
         self.served: dict[str, str] = {}
+        self.predict_threads: int | None = None
+
+    def set_predict_threads(self, threads: int | None) -> None:
+        """Prediction thread count for every model here, now and trained later."""
+        self.predict_threads = threads
+        for model in self.models.values():
+            model.predict_threads = threads
 
     def _name(self, cols: list[str]) -> str:
         if len(cols) == self.X.shape[1]:
@@ -241,8 +256,13 @@ class SubsetModels:
                              well=well)
         name = self._name(cols)
         if name not in self.models:
-            model = self.factory()
+            # In a batch worker train on the worker's share of the cores too: two workers each
+            # training with two threads on two cores run several times slower. LightGBM with
+            # ``deterministic`` gives the same trees for any thread count (checked in tests).
+            threads = getattr(self, "predict_threads", None)
+            model = self.factory(n_jobs=threads) if threads else self.factory()
             model.fit(self.X[cols], self.y, groups=self.groups, n_classes=self.n_classes)
+            model.predict_threads = threads
             self.models[name] = model
             self.subsets[name] = cols
         if well is not None:

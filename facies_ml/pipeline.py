@@ -172,6 +172,18 @@ class FaciesPipeline:
         tracts = np.asarray(tracts, dtype=int)
         return np.where(tracts >= 0, self._tract_index_map()[np.clip(tracts, 0, None)], UNLABELLED)
 
+    def set_predict_threads(self, threads: int | None) -> None:
+        """Threads each LightGBM prediction may use (``None`` = the training setting). Batch
+        workers set their share of the cores, so two workers do not each start two threads on
+        a 2-core machine. Predictions are identical for any thread count."""
+        for model in (getattr(self, "facies_model_", None), getattr(self, "tract_model_", None)):
+            if model is not None:
+                model.predict_threads = threads
+        for subsets in (getattr(self, "subset_models_", None),
+                        getattr(self, "tract_subset_models_", None)):
+            if subsets is not None:
+                subsets.set_predict_threads(threads)
+
     # --------------------------------------------------------------- prediction
     def _well_features(self, well: Well) -> tuple[Well, pd.DataFrame, list[str], list[str]]:
         """(GR-normalized well, its feature table, model features it has, model features it
@@ -212,8 +224,7 @@ class FaciesPipeline:
                 table["organic_proxy_toc_wt_pct"] = X[col].to_numpy(float)
                 break
         X_model = X.reindex(columns=self.feature_names_)
-        out_flag = self.envelope_.flag(X_model)
-        outside = self.envelope_.summary(X_model)
+        out_flag, outside = self.envelope_.assess(X_model)
         top_outside = dict(sorted(outside.items(), key=lambda kv: -kv[1])[:3])
         table["out_of_range"] = out_flag
         surfaces: list[Any] = []

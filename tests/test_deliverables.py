@@ -12,7 +12,7 @@ from facies_ml.batch import list_well_files, run_batch
 from facies_ml.config import load_config
 from facies_ml.pipeline import FaciesPipeline
 from facies_ml.report.landing import landing_summary
-from facies_ml.report.outputs import write_tops
+from facies_ml.report.outputs import fixed_decimal_rows, write_prediction_las, write_tops
 from facies_ml.report.plots import Style, correlation_panel, well_section
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), file signature
@@ -98,10 +98,71 @@ def test_dask_local_cluster_matches_serial(fitted, tiny_basin, tmp_path):
 
 
 def test_joblib_matches_serial(fitted, tiny_basin, tmp_path):
+    # One well without PE, so each worker trains a reduced-curve model on its single thread
+    # while the serial run trains it on two: every output file must still be identical.
+    import lasio
+
     pipe, _ = fitted
     files = list_well_files(tiny_basin)[:2]
+    wells = tmp_path / "wells"
+    wells.mkdir()
+    las = lasio.read(str(files[0]))
+    pe = [c.mnemonic for c in las.curves if c.mnemonic.upper().startswith("PE")]
+    assert pe, "the demo forward model writes a photoelectric curve"
+    for mnemonic in pe:
+        las.delete_curve(mnemonic)
+    las.well["WELL"].value = "QM-NOPE"
+    las.write(str(wells / "QM-NOPE.las"), version=2.0)
+    files = [wells / "QM-NOPE.las", files[1]]
     serial = run_batch(pipe, files, tmp_path / "s", progress=False)
     parallel = run_batch(pipe, files, tmp_path / "p", n_jobs=2, progress=False)
+    assert serial[0].model_used.startswith("subset") and serial[0].failure is None
     for a, b in zip(serial, parallel, strict=True):
-        assert (tmp_path / "s" / f"{a.well}.csv").read_bytes() == \
-               (tmp_path / "p" / f"{b.well}.csv").read_bytes()
+        assert a.model_used == b.model_used
+        for suffix in (".csv", ".las"):
+            assert (tmp_path / "s" / f"{a.well}{suffix}").read_bytes() == \
+                   (tmp_path / "p" / f"{b.well}{suffix}").read_bytes(), suffix
+        pd.testing.assert_frame_equal(pd.read_parquet(tmp_path / "s" / f"{a.well}.parquet"),
+                                      pd.read_parquet(tmp_path / "p" / f"{b.well}.parquet"))
+
+
+def test_fixed_decimal_rows_match_printf_formatting():
+    # Reference: Python's float formatting "{:.5f}" (the C printf "%.5f" conversion). Rows
+    # with a value near a rounding tie at the 6th decimal are left out: there binary rounding
+    # of value x 10^5 may differ from exact decimal rounding by one unit in the last place.
+    rng = np.random.default_rng(11)
+    data = np.column_stack([rng.normal(0, 300, 2000), rng.random(2000), rng.normal(0, 1e6, 2000),
+                            rng.integers(-3, 9, 2000), np.full(2000, -999.25)])
+    scaled = np.abs(data) * 1e5
+    data = data[(np.abs(scaled - np.floor(scaled) - 0.5) > 1e-3).all(axis=1)]
+    assert len(data) > 1900
+    lines = fixed_decimal_rows(data, 5).decode().splitlines()
+    assert len(lines) == len(data)
+    for line, row in zip(lines, data, strict=True):
+        assert line.split() == [f"{v:.5f}" for v in row]
+    widths = {len(line) for line in lines}
+    assert len(widths) == 1  # aligned columns: every line has the same length
+    assert fixed_decimal_rows(np.array([[2.5, -0.4]]), 0) == b" 2 0\n"  # half to even, no -0
+    with pytest.raises(ValueError):
+        fixed_decimal_rows(np.array([[np.nan]]))
+
+
+def test_written_las_values_read_back_with_lasio(fitted, tmp_path):
+    # Read back with lasio (reference LAS 2.0 reader): same curves and values to 5 decimals.
+    import lasio
+
+    pipe, project = fitted
+    pred = pipe.predict_well(project.wells[-1])
+    cfg = pipe.config
+    path = write_prediction_las(pred, tmp_path / "w.las", cfg.facies.codes, cfg.facies.labels,
+                                pipe.tract_names_)
+    las = lasio.read(str(path))
+    table = pred.table
+    np.testing.assert_array_equal(las["LITHO_CODE"], table["lithofacies_code"].to_numpy(float))
+    np.testing.assert_array_equal(las["TRACT_CODE"], table["systems_tract"].to_numpy(float) + 1)
+    for lab in cfg.facies.labels:
+        np.testing.assert_allclose(las[f"P_{lab}"], table[f"p_{lab}"], atol=5.01e-6)
+    gr = pred.well.curves["gr_api"].to_numpy(float)
+    ok = np.isfinite(gr)
+    np.testing.assert_allclose(las["GR_API"][ok], gr[ok], atol=5.01e-6)
+    assert np.isnan(las["GR_API"][~ok]).all()  # written as the NULL value, read back as NaN

@@ -220,3 +220,35 @@ def test_gap_longer_than_max_gap_not_interpolated(tmp_path, cfg):
     gr = well.curves["gr_api"]
     assert gr.loc[101.0] == pytest.approx(202.0)         # inside the 1 ft gap: interpolated
     assert gr.loc[103.0:106.5].isna().all()              # inside the 5 ft gap: missing
+
+
+def test_fast_reader_equals_lasio_full_reader_on_demo_wells(cfg, monkeypatch):
+    # The fast path (lasio reads the header text only, numpy the ~A block) must give the same
+    # conditioned well as lasio's own full reader (the reference) on every bundled file.
+    from facies_ml.wells import las as las_module
+
+    demo = Path(__file__).resolve().parents[1] / "synthetic_wells"
+    files = sorted(demo.glob("*.las"))
+    assert len(files) >= 10
+    fast = [read_well(f, cfg) for f in files]
+    monkeypatch.setattr(las_module, "_read_fast", lambda src: None)
+    for f, a in zip(files, fast, strict=True):
+        b = read_well(f, cfg)
+        assert (a.name, a.depth_unit, a.original_depth_unit) == \
+               (b.name, b.depth_unit, b.original_depth_unit), f.name
+        np.testing.assert_array_equal(a.depth, b.depth)
+        assert list(a.curves.columns) == list(b.curves.columns), f.name
+        np.testing.assert_array_equal(a.curves.to_numpy(), b.curves.to_numpy())
+        assert json.dumps(a.intake, sort_keys=True, default=str) == \
+               json.dumps(b.intake, sort_keys=True, default=str), f.name
+
+
+def test_fast_reader_falls_back_for_a_section_after_the_data(tmp_path, cfg):
+    # Anything the fast path does not cover (here a section after ~A) goes to lasio's reader.
+    from facies_ml.wells.las import _read_fast
+
+    text = las_text(CURVES, base_rows())
+    plain = write(tmp_path, "plain.las", text)
+    assert _read_fast(str(plain)) is not None
+    odd = write(tmp_path, "odd.las", text + "~Other\nnote\n")
+    assert _read_fast(str(odd)) is None

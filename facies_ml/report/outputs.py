@@ -100,37 +100,47 @@ def write_table(frame: pd.DataFrame, path: str | Path, comment: str | None = Non
     return atomic_write(path, _w)
 
 
-def write_prediction_csv(pred: WellPrediction, path: str | Path) -> Path:
-    """CSV of :func:`prediction_frame` (floats rounded to 5 decimals), caution on line 1."""
+def prediction_arrow(pred: WellPrediction) -> Any:
+    """:func:`prediction_frame` as a pyarrow Table (depth as the first column)."""
+    import pyarrow as pa
+
+    return pa.Table.from_pandas(prediction_frame(pred).reset_index(), preserve_index=False)
+
+
+def write_prediction_csv(pred: WellPrediction, path: str | Path, table: Any = None) -> Path:
+    """CSV of :func:`prediction_frame` (floats rounded to 5 decimals), caution on line 1.
+    ``table``: the :func:`prediction_arrow` of ``pred`` if already built."""
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    frame = prediction_frame(pred).reset_index()
-    floats = frame.select_dtypes(include="float").columns
-    frame[floats] = frame[floats].round(5)
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    table = prediction_arrow(pred) if table is None else table
+    # numpy's rounding (as pandas'), exact at 5 decimals; NaN stays an empty cell
+    columns = [pa.array(np.round(col.to_numpy(), 5), type=col.type, from_pandas=True)
+               if pa.types.is_floating(col.type) else col for col in table.columns]
+    rounded = pa.table(columns, names=table.column_names)
 
     def _w(tmp: Path) -> None:
         with open(tmp, "wb") as fh:
             fh.write(f"# facies_ml {__version__} prediction for well {pred.well.name}. "
                      f"{CAUTION}\n".encode())
-            pacsv.write_csv(table, fh, pacsv.WriteOptions(quoting_style="needed"))
+            pacsv.write_csv(rounded, fh, pacsv.WriteOptions(quoting_style="needed"))
 
     return atomic_write(path, _w)
 
 
-def write_prediction_parquet(pred: WellPrediction, path: str | Path) -> Path:
-    """Parquet copy of the prediction table; the caution is stored in the file metadata."""
+def write_prediction_parquet(pred: WellPrediction, path: str | Path, table: Any = None) -> Path:
+    """Parquet copy of the prediction table; the caution is stored in the file metadata.
+    Dictionary encoding only for the label and code columns (not for continuous values)."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    frame = prediction_frame(pred).reset_index()
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    table = prediction_arrow(pred) if table is None else table
     meta = dict(table.schema.metadata or {})
     meta[b"facies_ml.caution"] = CAUTION.encode()
     meta[b"facies_ml.well"] = pred.well.name.encode()
     table = table.replace_schema_metadata(meta)
-    return atomic_write(path, lambda tmp: pq.write_table(table, tmp))
+    categorical = [f.name for f in table.schema if not pa.types.is_floating(f.type)]
+    return atomic_write(path, lambda tmp: pq.write_table(table, tmp, use_dictionary=categorical))
 
 
 def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: list[int],
@@ -176,14 +186,62 @@ def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: l
         las.params.append(lasio.HeaderItem(f"TRACT{i + 1}", "", name, "systems tract code"))
 
     def _w(tmp: Path) -> None:
-        # lasio writes the header sections and the ~A line; the data block (same layout:
-        # one depth step per line, NULL for missing) is written by numpy, much faster.
+        # lasio writes the header sections and the ~A line; the data block (one depth step
+        # per line, NULL for missing, aligned columns) is formatted by numpy, much faster.
         with open(tmp, "w") as fh:
             las.write(fh, version=2.0, wrap=False, STRT=float(depth[0]), STOP=float(depth[-1]),
                       STEP=round(step, 6))
-            np.savetxt(fh, data, fmt="%.5f", delimiter=" ")
+        with open(tmp, "ab") as fh:
+            fh.write(fixed_decimal_rows(data, 5))
 
     return atomic_write(path, _w)
+
+
+def fixed_decimal_rows(data: np.ndarray, decimals: int = 5) -> bytes:
+    """Rows of a 2-D float array as text: each value fixed-point with ``decimals`` places (as
+    ``'%.{decimals}f'``, rounded half to even on value x 10^decimals), right-aligned in a column
+    as wide as its longest value plus one space; one line per row. Vectorised (the LAS data
+    block of a 10,000-sample well in milliseconds). Values must be finite, |x| < 1e12."""
+    data = np.asarray(data, dtype=float)
+    if data.ndim != 2:
+        raise ValueError("fixed_decimal_rows needs a 2-D array")
+    n, k = data.shape
+    if n == 0 or k == 0:
+        return b""
+    if not np.all(np.isfinite(data)) or np.abs(data).max() >= 1e12:
+        raise ValueError("fixed_decimal_rows needs finite values below 1e12 in magnitude")
+    decimals = int(decimals)
+    cols = np.ascontiguousarray(data.T)  # columns x rows: each column contiguous
+    q = np.rint(np.abs(cols) * 10.0 ** decimals).astype(np.int64)
+    negative = (cols < 0) & (q > 0)
+    whole, frac = np.divmod(q, 10 ** decimals)
+    small = np.int32 if whole.max() < 2**31 else np.int64  # int32 division is much faster
+    whole, frac = whole.astype(small), frac.astype(np.int32)
+    n_digits = np.maximum(1, np.searchsorted(10 ** np.arange(13, dtype=np.int64), whole,
+                                             side="right"))
+    int_width = (n_digits + negative).max(axis=1)
+    point = 1 + decimals if decimals > 0 else 0
+    widths = 1 + int_width + point
+    ends = np.cumsum(widths) - point  # one past each column's integer part
+    # Characters x rows (one contiguous row per character position); digits are peeled off
+    # from the right of every column at once.
+    out = np.full((int(widths.sum()) + 1, n), ord(" "), dtype=np.uint8)
+    out[-1] = ord("\n")
+    zero = ord("0")
+    rest = whole
+    for p in range(int(int_width.max())):
+        rest, digit = np.divmod(rest, 10)
+        for j in np.flatnonzero(int_width > p):
+            row = out[ends[j] - 1 - p]
+            np.copyto(row, digit[j] + zero, where=n_digits[j] > p, casting="unsafe")
+            row[negative[j] & (n_digits[j] == p)] = ord("-")
+    if decimals > 0:
+        out[ends] = ord(".")
+        rest = frac
+        for p in range(decimals - 1, -1, -1):
+            rest, digit = np.divmod(rest, 10)
+            out[ends + 1 + p] = digit + zero
+    return np.ascontiguousarray(out.T).tobytes()
 
 
 def write_tops(rows: Iterable[tuple[str, str, list[Any]]], path: str | Path) -> Path:

@@ -33,28 +33,42 @@ def _value(section: Any, key: str) -> Any:
     return None if item is None else item.value
 
 
+def _decode(raw: bytes) -> str | None:
+    for encoding in ("utf-8", "latin-1"):
+        try:
+            return raw.decode(encoding)
+        except UnicodeDecodeError:
+            continue
+    return None
+
+
 def _read_fast(src: str) -> Any:
     """Header by lasio, data block by numpy, for the common case (LAS 2.0, WRAP NO, space
-    delimited, every cell numeric). Returns ``None`` whenever that case does not hold, so the
-    caller falls back to lasio's full reader (which also produces its error messages)."""
+    delimited, every cell numeric). The file is read once; lasio parses only the text above
+    the ``~A`` line. Returns ``None`` whenever that case does not hold, so the caller falls
+    back to lasio's full reader (which also produces its error messages)."""
     import io
     import re
 
     import lasio
 
+    with open(src, "rb") as fh:
+        raw = fh.read()
+    match = re.search(rb"^[ \t]*~A[^\n]*\n", raw, flags=re.MULTILINE)
+    if match is None or re.search(rb"^[ \t]*~", raw[match.end():], flags=re.MULTILINE):
+        return None
+    header = _decode(raw[:match.start()])
+    if header is None:
+        return None
     try:
-        las = lasio.read(src, ignore_data=True, null_policy="none", ignore_header_errors=False)
+        las = lasio.read(io.StringIO(header), ignore_data=True, null_policy="none",
+                         ignore_header_errors=False)
     except Exception:  # noqa: BLE001 - the full reader will report it
         return None
     version = str(_value(las.version, "VERS") or "").strip()
     wrap = str(_value(las.version, "WRAP") or "").strip().upper()
     dlm = str(_value(las.version, "DLM") or "SPACE").strip().upper()
     if not version.startswith("2") or wrap != "NO" or dlm not in ("", "SPACE") or not las.curves:
-        return None
-    with open(src, "rb") as fh:
-        raw = fh.read()
-    match = re.search(rb"^~A[^\n]*\n", raw, flags=re.MULTILINE)
-    if match is None or re.search(rb"^~", raw[match.end():], flags=re.MULTILINE):
         return None
     body = raw[match.end():]
     if not body.strip():
