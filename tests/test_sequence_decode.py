@@ -184,6 +184,27 @@ def test_long_strong_duration_posteriors_match_hmmlearn(seed, m, T, scale) -> No
     assert (post.argmax(axis=1) != emit.argmax(axis=1)).mean() > 0.01
 
 
+@pytest.mark.parametrize("T", [1, 2, 3, 5, 9])
+def test_logs_shorter_than_a_chain_match_hmmlearn(T) -> None:
+    # Reference: hmmlearn 0.3.3 predict_proba / score and Viterbi on the expanded model, for
+    # logs shorter than the longest minimum duration (10 samples), where a path may end inside
+    # a chain (a hypothesis run found T = 3 failing before the fix).
+    rng = np.random.default_rng(30 + T)
+    m = np.array([10, 2, 4, 1])
+    ls, stay, sw = _duration_model(rng, m)
+    x = expand_durations(ls, stay, sw, m)
+    emit = rng.normal(size=(T, 4)) * 2.0
+    summed, ref_ll = _summed_reference(x, emit)
+    post, ll = forward_backward_durations(ls, stay, sw, m, emit)
+    np.testing.assert_allclose(post, summed, atol=1e-9)
+    assert ll == pytest.approx(ref_ll, rel=1e-10)
+    ref_lp, ref_path = _reference(np.exp(x.log_start), np.exp(x.log_trans)).decode(
+        emit[:, x.state_tract], algorithm="viterbi")
+    path, lp = viterbi_durations(ls, stay, sw, m, emit)
+    np.testing.assert_array_equal(path, x.state_tract[ref_path])
+    assert lp == pytest.approx(ref_lp, rel=1e-9, abs=1e-7)
+
+
 @pytest.mark.parametrize("block", [8, 16, 40, 100000])
 def test_duration_posteriors_do_not_depend_on_the_block_size(block) -> None:
     # Reference: hmmlearn predict_proba on the expanded model; small blocks force many

@@ -585,7 +585,7 @@ def _chain_forward_backward(log_start: np.ndarray, log_stay: np.ndarray, log_swi
     if not np.isfinite(log_z):
         alive = np.isfinite(la)
         fin = np.isfinite(ent) & chain[None, :]
-        for j in range(M - 1):
+        for j in range(min(M - 1, T)):
             sel = m - 1 > j
             alive[j:, sel] |= fin[:T - j, sel]
         r = int(np.flatnonzero(~alive.any(axis=1))[0]) if not alive.any(axis=1).all() else T - 1
@@ -593,8 +593,8 @@ def _chain_forward_backward(log_start: np.ndarray, log_stay: np.ndarray, log_swi
                          "(forward probability is zero)", row=r)
     post = np.exp(la + lb - log_z)
     pw = np.exp(W - log_z)
-    for j in range(M - 1):                     # in sub-state j of a chain entered at t - j
-        sel = m - 1 > j
+    for j in range(min(M - 1, T)):             # in sub-state j of a chain entered at t - j
+        sel = m - 1 > j                        # (a log shorter than a chain: j < T only)
         post[j:, sel] += pw[:T - j, sel]
     post /= post.sum(axis=1, keepdims=True)
     return post, log_z + float(shift.sum())
