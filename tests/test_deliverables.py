@@ -147,22 +147,72 @@ def test_fixed_decimal_rows_match_printf_formatting():
         fixed_decimal_rows(np.array([[np.nan]]))
 
 
-def test_written_las_values_read_back_with_lasio(fitted, tmp_path):
-    # Read back with lasio (reference LAS 2.0 reader): same curves and values to 5 decimals.
+def _written_las(pipe, well, path):
+    cfg = pipe.config
+    pred = pipe.predict_well(well)
+    write_prediction_las(pred, path, cfg.facies.codes, cfg.facies.labels, pipe.tract_names_)
+    return pred
+
+
+def test_written_las_keeps_the_input_curves_and_adds_predictions(fitted, tiny_basin, tmp_path):
+    # Reference: lasio (LAS 2.0 reader) on both the input file and our output. The input's
+    # curves come back with their mnemonics, units, depths and values (5 decimals written);
+    # the predictions sit on the same rows.
     import lasio
 
-    pipe, project = fitted
-    pred = pipe.predict_well(project.wells[-1])
-    cfg = pipe.config
-    path = write_prediction_las(pred, tmp_path / "w.las", cfg.facies.codes, cfg.facies.labels,
-                                pipe.tract_names_)
-    las = lasio.read(str(path))
+    from facies_ml.wells import read_well
+
+    pipe, _ = fitted
+    src = sorted(tiny_basin.glob("*.las"))[-1]
+    pred = _written_las(pipe, read_well(src, pipe.config), tmp_path / "w.las")
+    inp, out = lasio.read(str(src)), lasio.read(str(tmp_path / "w.las"))
+    n_in = len(inp.curves)
+    assert [(c.mnemonic, c.unit) for c in out.curves[:n_in]] == \
+           [(c.mnemonic, c.unit) for c in inp.curves]
+    np.testing.assert_allclose(out.index, inp.index, atol=5.01e-6)
+    for c in inp.curves[1:]:
+        np.testing.assert_allclose(out[c.mnemonic], c.data, atol=5.01e-6, equal_nan=True)
+    # predictions: the working grid here is the file's own sampling (0.5 ft = 0.1524 m)
     table = pred.table
-    np.testing.assert_array_equal(las["LITHO_CODE"], table["lithofacies_code"].to_numpy(float))
-    np.testing.assert_array_equal(las["TRACT_CODE"], table["systems_tract"].to_numpy(float) + 1)
-    for lab in cfg.facies.labels:
-        np.testing.assert_allclose(las[f"P_{lab}"], table[f"p_{lab}"], atol=5.01e-6)
-    gr = pred.well.curves["gr_api"].to_numpy(float)
-    ok = np.isfinite(gr)
-    np.testing.assert_allclose(las["GR_API"][ok], gr[ok], atol=5.01e-6)
-    assert np.isnan(las["GR_API"][~ok]).all()  # written as the NULL value, read back as NaN
+    code = pd.Series(table["lithofacies_code"].to_numpy(float), index=np.round(table.index, 3))
+    rows = np.isfinite(out["LITHO_CODE"])
+    assert rows.sum() == len(table)
+    keys = np.round(pred.well.from_original_depth(out.index[rows]), 3)
+    np.testing.assert_array_equal(out["LITHO_CODE"][rows], code.reindex(keys).to_numpy())
+    for lab in pipe.config.facies.labels:
+        p_ = pd.Series(table[f"p_{lab}"].to_numpy(float), index=code.index)
+        np.testing.assert_allclose(out[f"P_{lab}"][rows], p_.reindex(keys), atol=5.01e-6)
+    assert out.well["UWI"].value == inp.well["UWI"].value
+
+
+def test_written_las_on_a_finer_metre_sampling(fitted, tiny_basin, tmp_path):
+    # The file is in metres every 0.1 m (the working grid is 0.5 ft = 0.1524 m): every file
+    # row inside the gridded interval takes the nearest grid sample's prediction (within half
+    # a step); the file's depths and unit are kept.
+    import lasio
+
+    from facies_ml.wells import read_well
+
+    pipe, _ = fitted
+    src = lasio.read(str(sorted(tiny_basin.glob("*.las"))[-1]))
+    assert src.curves[0].unit.upper() in ("M", "F", "FT")
+    depth_m = src.index * (1.0 if src.curves[0].unit.upper() == "M" else 0.3048)  # 1 ft = 0.3048 m
+    fine = np.arange(np.ceil(depth_m[0] * 10) / 10, depth_m[-1], 0.1)
+    las = lasio.LASFile()
+    las.well["WELL"].value = "QM-FINE"
+    las.append_curve("DEPT", fine, unit="M")
+    for c in src.curves[1:]:
+        ok = np.isfinite(c.data)
+        las.append_curve(c.mnemonic, np.interp(fine, depth_m[ok], c.data[ok]), unit=c.unit)
+    las.write(str(tmp_path / "fine.las"), version=2.0)
+    well = read_well(tmp_path / "fine.las", pipe.config)
+    pred = _written_las(pipe, well, tmp_path / "out.las")
+    out = lasio.read(str(tmp_path / "out.las"))
+    assert out.curves[0].unit == "M"
+    np.testing.assert_allclose(out.index, fine, atol=5.01e-6)
+    grid_m = pred.table.index.to_numpy(float) * 0.3048
+    inside = (fine >= grid_m[0]) & (fine <= grid_m[-1])
+    assert np.isfinite(out["LITHO_CODE"][inside]).all()
+    nearest = np.abs(fine[inside, None] - grid_m[None, :]).argmin(axis=1)
+    np.testing.assert_array_equal(out["LITHO_CODE"][inside],
+                                  pred.table["lithofacies_code"].to_numpy(float)[nearest])

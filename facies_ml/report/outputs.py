@@ -143,9 +143,57 @@ def write_prediction_parquet(pred: WellPrediction, path: str | Path, table: Any 
     return atomic_write(path, lambda tmp: pq.write_table(table, tmp, use_dictionary=categorical))
 
 
+LAS_NULL = -999.25
+WELL_ITEMS = ("UWI", "COMP", "FLD", "LOC", "DATE")  # ~Well items carried over from the input
+
+
+def _nearest_rows(grid: np.ndarray, depth: np.ndarray, half_step: float) -> np.ndarray:
+    """Index into the sorted ``grid`` of the sample nearest each ``depth``; -1 where none is
+    within ``half_step`` (same unit)."""
+    if len(grid) == 0:
+        return np.full(len(depth), -1)
+    j = np.clip(np.searchsorted(grid, depth), 1, max(1, len(grid) - 1))
+    if len(grid) == 1:
+        j = np.zeros(len(depth), dtype=int)
+    else:
+        j = np.where(np.abs(depth - grid[j - 1]) <= np.abs(grid[j] - depth), j - 1, j)
+    return np.where(np.abs(grid[j] - depth) <= half_step * (1 + 1e-6) + 1e-9, j, -1)
+
+
+def _las_input_columns(pred: WellPrediction, frame: pd.DataFrame
+                       ) -> tuple[list[tuple[str, str, str, np.ndarray]], np.ndarray]:
+    """(depth + input curves as LAS columns, index of the prediction row for each LAS row).
+
+    With the file's curves kept at intake (``Well.original``) the LAS rows are the file's own
+    depths and curves, untouched; each row takes the prediction at the nearest working-grid
+    sample within half a step, else NULL. Without them (a well built in code) the rows are the
+    working grid and the curves the conditioned ones."""
+    well = pred.well
+    orig = well.original
+    if orig is None or orig.empty:
+        columns = [("DEPT", well.original_depth_unit.upper(), "depth",
+                    frame.iloc[:, 0].to_numpy(float))]
+        columns += [(role.upper()[:16], "", f"conditioned {role}", frame[role].to_numpy(float))
+                    for role in well.roles]
+        return columns, np.arange(len(frame))
+    depth = orig.index.to_numpy(float)
+    grid = np.asarray(well.to_original_depth(frame.index.to_numpy(float)), dtype=float)
+    half = 0.5 * abs(float(well.to_original_depth(well.step)))
+    rows = _nearest_rows(grid, depth, half)
+    name = str(orig.index.name or "DEPT")
+    columns = [(name.replace(":", "_"), well.original_units.get(name, "")
+                or well.original_depth_unit.upper(), "depth (as in the input file)", depth)]
+    columns += [(str(c).replace(":", "_"), well.original_units.get(c, ""),
+                 well.original_descr.get(c, "") or "from the input file",
+                 orig[c].to_numpy(float)) for c in orig.columns]
+    return columns, rows
+
+
 def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: list[int],
                          facies_labels: list[str], tract_names: list[str]) -> Path:
-    """LAS 2.0 with input curves and predicted codes/probabilities; depth in the original unit.
+    """LAS 2.0: the input file's curves (mnemonics, units, depths and values as read; NULL
+    -999.25) followed by the predicted codes, probabilities and out-of-range flag; depth in
+    the file's unit, increasing downward.
 
     The code-to-label mapping is written as ~Parameter entries and in ~Other with the caution.
     """
@@ -153,33 +201,50 @@ def write_prediction_las(pred: WellPrediction, path: str | Path, facies_codes: l
     well = pred.well
     las = lasio.LASFile()
     las.well["WELL"].value = well.name
-    las.well["NULL"].value = -999.25
+    las.well["NULL"].value = LAS_NULL
+    for key in WELL_ITEMS:
+        if well.header.get(key):
+            las.well[key].value = str(well.header[key])
     las.other = (f"Written by facies_ml {__version__}. {CAUTION} "
                  "Lithofacies codes: " + ", ".join(f"{c}={lab}" for c, lab in
                                                    zip(facies_codes, facies_labels, strict=True))
                  + ". Systems tract codes: " + ", ".join(f"{i + 1}={t}" for i, t in
                                                          enumerate(tract_names)) + ".")
-    columns: list[tuple[str, str, str, np.ndarray]] = [
-        ("DEPT", well.original_depth_unit.upper(), "depth", frame.iloc[:, 0].to_numpy(float))]
-    columns += [(role.upper()[:16], "", f"conditioned {role}", frame[role].to_numpy(float))
-                for role in well.roles]
-    columns.append(("LITHO_CODE", "", "predicted lithofacies code (see ~Parameter)",
-                    frame["lithofacies_code"].to_numpy(float)))
-    columns += [(f"P_{lab}"[:16], "", f"probability of {lab}", frame[f"p_{lab}"].to_numpy(float))
-                for lab in facies_labels]
+    inputs, rows = _las_input_columns(pred, frame)
+    hit = rows >= 0
+
+    def at_rows(values: np.ndarray) -> np.ndarray:
+        return np.where(hit, np.asarray(values, dtype=float)[np.clip(rows, 0, None)], np.nan)
+
+    added: list[tuple[str, str, str, np.ndarray]] = [
+        ("LITHO_CODE", "", "predicted lithofacies code (see ~Parameter)",
+         at_rows(frame["lithofacies_code"].to_numpy(float)))]
+    added += [(f"P_{lab}"[:16], "", f"probability of {lab}", at_rows(frame[f"p_{lab}"]))
+              for lab in facies_labels]
     if "systems_tract" in frame:
-        columns.append(("TRACT_CODE", "", "predicted systems tract code (see ~Parameter)",
-                        frame["systems_tract"].to_numpy(float) + 1))
-        columns += [(f"P_{name}"[:16], "", f"posterior probability of {name}",
-                     frame[f"p_{name}"].to_numpy(float)) for name in tract_names]
-    columns.append(("OUT_OF_RANGE", "", "1 = features outside the training envelope",
-                    frame["out_of_range"].to_numpy(float)))
+        added.append(("TRACT_CODE", "", "predicted systems tract code (see ~Parameter)",
+                      at_rows(frame["systems_tract"].to_numpy(float) + 1)))
+        added += [(f"P_{name}"[:16], "", f"posterior probability of {name}",
+                   at_rows(frame[f"p_{name}"])) for name in tract_names]
+    added.append(("OUT_OF_RANGE", "", "1 = features outside the training envelope",
+                  at_rows(frame["out_of_range"].to_numpy(float))))
+    taken = {c[0].upper() for c in added}
+    renamed = []
+    for mnemonic, unit, descr, values in inputs:  # an input curve never hides a predicted one
+        while mnemonic.upper() in taken:
+            mnemonic += "_IN"
+        taken.add(mnemonic.upper())
+        renamed.append((mnemonic, unit, descr, values))
+    columns = renamed + added
     for mnemonic, unit, descr, _ in columns:
         las.append_curve(mnemonic, np.empty(0), unit=unit, descr=descr)
     data = np.column_stack([c[3] for c in columns])
-    data = np.where(np.isfinite(data), data, -999.25)
+    data = np.where(np.isfinite(data), data, LAS_NULL)
     depth = data[:, 0]
-    step = float(np.median(np.diff(depth))) if len(depth) > 1 else 0.0
+    diffs = np.diff(depth)
+    step = float(np.median(diffs)) if len(diffs) else 0.0
+    if len(diffs) and not np.allclose(diffs, step, rtol=1e-3, atol=1e-6):
+        step = 0.0  # LAS 2.0: STEP 0 when the increment is not constant
     for code, lab in zip(facies_codes, facies_labels, strict=True):
         las.params.append(lasio.HeaderItem(f"LITH{code}", "", lab, "lithofacies code"))
     for i, name in enumerate(tract_names):
@@ -201,15 +266,19 @@ def fixed_decimal_rows(data: np.ndarray, decimals: int = 5) -> bytes:
     """Rows of a 2-D float array as text: each value fixed-point with ``decimals`` places (as
     ``'%.{decimals}f'``, rounded half to even on value x 10^decimals), right-aligned in a column
     as wide as its longest value plus one space; one line per row. Vectorised (the LAS data
-    block of a 10,000-sample well in milliseconds). Values must be finite, |x| < 1e12."""
+    block of a 10,000-sample well in milliseconds). Values must be finite; with any |x| >= 1e12
+    Python's formatting is used instead (same text, unaligned, slower)."""
     data = np.asarray(data, dtype=float)
     if data.ndim != 2:
         raise ValueError("fixed_decimal_rows needs a 2-D array")
     n, k = data.shape
     if n == 0 or k == 0:
         return b""
-    if not np.all(np.isfinite(data)) or np.abs(data).max() >= 1e12:
-        raise ValueError("fixed_decimal_rows needs finite values below 1e12 in magnitude")
+    if not np.all(np.isfinite(data)):
+        raise ValueError("fixed_decimal_rows needs finite values (write NULL for missing)")
+    if np.abs(data).max() >= 1e12:  # rare: Python's own formatting, row by row
+        return "".join(" " + " ".join(f"{v:.{int(decimals)}f}" for v in row) + "\n"
+                       for row in data).encode()
     decimals = int(decimals)
     cols = np.ascontiguousarray(data.T)  # columns x rows: each column contiguous
     q = np.rint(np.abs(cols) * 10.0 ** decimals).astype(np.int64)

@@ -33,6 +33,7 @@ class RawCurve:
     mnemonic: str            # as in the file (lasio may add ":n" to repeated names)
     unit: str                # as in the file ("" when none)
     values: Any              # array-like of numbers or text, same length as the depth column
+    descr: str = ""          # the file's curve description, if any
 
 
 @dataclass
@@ -47,6 +48,8 @@ class RawWell:
     null_values: list[float] = field(default_factory=list)
     header: dict[str, Any] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
+    depth_mnemonic: str = "DEPT"     # the index curve's name in the file
+    depth_unit_text: str = ""        # the index unit as written in the file ("F", "M", ...)
 
 
 @lru_cache(maxsize=8)
@@ -125,6 +128,8 @@ def build_well(raw: RawWell, config: Config) -> Well:
     if np.any(np.diff(d) < 0):
         notes.append("depth was not increasing downward; rows sorted by depth")
     rows, d = rows[order], d[order]
+
+    original, original_units, original_descr = _original_curves(raw, rows, d, nulls)
 
     # roles
     curves_found: list[dict[str, Any]] = []
@@ -280,5 +285,30 @@ def build_well(raw: RawWell, config: Config) -> Well:
     header = {k: _py(v) for k, v in raw.header.items()}
     return Well(name=raw.name, curves=curves, depth_unit=work_unit,
                 original_depth_unit=raw.depth_unit, step=step, source=raw.source, flags=flags,
-                header=header, intake=intake)
+                header=header, intake=intake, original=original, original_units=original_units,
+                original_descr=original_descr)
+
+
+def _original_curves(raw: RawWell, rows: np.ndarray, depth: np.ndarray, nulls: list[float]
+                     ) -> tuple[pd.DataFrame, dict[str, str], dict[str, str]]:
+    """Every file curve as read (numbers; NULL sentinels and text -> NaN, no other change) on
+    the file's own depths (``rows`` kept, sorted downward), named by the file mnemonics; their
+    units (the index's under the index name) and descriptions. Curves of another length are
+    left out (the role loop reports those)."""
+    columns: dict[str, np.ndarray] = {}
+    units = {raw.depth_mnemonic: raw.depth_unit_text}
+    descr: dict[str, str] = {}
+    for c in raw.curves:
+        vals, _ = clean.to_numeric(c.values)
+        if len(vals) != len(raw.depth):
+            continue
+        vals, _ = clean.replace_nulls(vals, nulls)
+        name = str(c.mnemonic)
+        while name in columns or name == raw.depth_mnemonic:
+            name += "_"
+        columns[name] = vals[rows]
+        units[name] = str(c.unit or "")
+        descr[name] = str(c.descr or "")
+    frame = pd.DataFrame(columns, index=pd.Index(depth, name=raw.depth_mnemonic))
+    return frame, units, descr
 

@@ -171,9 +171,10 @@ def read_las_raw(path: str | Path, config: Config) -> RawWell:
             raise InputError("curve length differs from the depth index", curve=c.mnemonic,
                              **where)
         curves.append(RawCurve(mnemonic=str(c.mnemonic), unit=str(c.unit or "").strip(),
-                               values=data))
+                               values=data, descr=str(c.descr or "").strip()))
     return RawWell(name=name, source=src, depth=index.data, depth_unit=unit, curves=curves,
-                   null_values=nulls, header=header, notes=notes)
+                   null_values=nulls, header=header, notes=notes,
+                   depth_mnemonic=str(index.mnemonic), depth_unit_text=idx_unit or strt_unit)
 
 
 def _header_checks(header: dict[str, Any], depth: Any, unit: str) -> list[str]:

@@ -46,6 +46,11 @@ class Well:
     ``flags``: same index, boolean quality columns (e.g. ``bad_hole``).
     ``original_depth_unit``: unit of the source file's index; ``to_original_depth`` converts back.
     ``intake``: the per-well intake report (curves found, roles, conversions, drops, shifts).
+    ``original``: the file's curves as read (numbers, NULL -> NaN, file mnemonics) on the
+    file's own depths (``original_depth_unit``, sorted downward, duplicate depths dropped);
+    ``original_units`` maps each of its columns and its index name to the file's unit text,
+    ``original_descr`` each column to the file's description.
+    ``None`` for a well built in code.
     """
 
     name: str
@@ -57,6 +62,9 @@ class Well:
     flags: pd.DataFrame | None = None
     header: dict[str, Any] = field(default_factory=dict)
     intake: dict[str, Any] = field(default_factory=dict)
+    original: pd.DataFrame | None = None
+    original_units: dict[str, str] = field(default_factory=dict)
+    original_descr: dict[str, str] = field(default_factory=dict)
 
     @property
     def depth(self) -> np.ndarray:

@@ -132,5 +132,5 @@ def table_raw_wells(path: str | Path, config: Config, well_column: str | None = 
                   for c in curve_cols]
         out.append(RawWell(name=name, source=src, depth=g[dcol].to_numpy(), depth_unit=unit,
                            curves=curves, header={"depth_column": dcol, "depth_unit": unit},
-                           notes=list(notes)))
+                           notes=list(notes), depth_mnemonic=str(dcol), depth_unit_text=unit))
     return out
