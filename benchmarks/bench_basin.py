@@ -1,7 +1,8 @@
 """Basin-scale prediction benchmark: N generated wells x S samples, end to end.
 
-Prints samples/s, a per-stage time breakdown (read + condition, predict, write) and peak RSS
-(this process and its worker processes). Not a test: it only prints figures.
+Prints samples/s, a per-stage time breakdown (read + condition, predict, write), peak RSS
+(this process and its worker processes) and, as a same-run reference, the cost per well and
+core as a multiple of reading the file with lasio alone. Not a test: it only prints figures.
 
 The generator's forward model is run for a few template wells of S samples; the remaining
 wells are byte copies under new names (reading, conditioning, prediction and writing are
@@ -52,6 +53,8 @@ def main() -> None:
     ap.add_argument("--templates", type=int, default=6)
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--keep", action="store_true", help="keep the temporary folder")
+    ap.add_argument("--reference-sample", type=int, default=50,
+                    help="files read with lasio alone as the same-run reference")
     args = ap.parse_args()
 
     work = Path(tempfile.mkdtemp(prefix="facies_bench_"))
@@ -79,6 +82,15 @@ def main() -> None:
         t_gen = time.perf_counter() - t0
 
         files = list_well_files(wells_dir)
+        # Same-run reference: lasio's own reader (numpy engine) on a sample of the files,
+        # serial; our end-to-end cost per well and core is reported as a multiple of it.
+        import lasio
+
+        sample = files[:max(1, min(args.reference_sample, len(files)))]
+        t0 = time.perf_counter()
+        for f in sample:
+            lasio.read(str(f))
+        t_ref = (time.perf_counter() - t0) / len(sample)
         t0 = time.perf_counter()
         results = run_batch(pipe, files, work / "out", n_jobs=args.jobs, progress=False)
         wall = time.perf_counter() - t0
@@ -96,6 +108,10 @@ def main() -> None:
         total = sum(stages.values())
         for k, v in stages.items():
             print(f"  {k:<18} {v:8.1f} s summed over workers ({v / max(total, 1e-9):.0%})")
+        per_well_core = wall * args.jobs / max(1, len(ok))
+        print(f"reference: lasio.read alone {t_ref * 1000:.0f} ms per file (serial, {len(sample)} "
+              f"files); facies_ml end to end {per_well_core * 1000:.0f} ms per well per core = "
+              f"{per_well_core / t_ref:.1f}x one lasio read")
         print(f"peak RSS: main process {rss_self:.0f} MB, largest worker {rss_children:.0f} MB")
         print(f"targets: wall < 300 s -> {'met' if wall < 300 else 'NOT met'}; "
               f"RSS < 1024 MB -> {'met' if max(rss_self, rss_children) < 1024 else 'NOT met'}")

@@ -149,10 +149,9 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
     if scheduler:
         threads = 1  # a Dask worker runs one task per thread; each takes one core
     elif n_jobs != 1:
-        from joblib import cpu_count
+        from joblib import cpu_count, effective_n_jobs
 
-        n_workers = n_jobs if n_jobs > 0 else cpu_count()
-        threads = max(1, cpu_count() // max(1, n_workers))
+        threads = max(1, cpu_count() // max(1, effective_n_jobs(n_jobs)))
     chunks = [[str(f) for f in files[i:i + size]] for i in range(0, len(files), size)]
     out: list[list[Any]] = []
     if scheduler:
