@@ -88,12 +88,16 @@ def load_project(wells_path: str | Path, core_path: str | Path | None, config: C
 def evaluate(wells_path: str | Path, core_path: str | Path, out_dir: str | Path,
              config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
              progress: Progress = None) -> dict[str, Any]:
-    """Leave-one-well-out over the cored wells; writes ``metrics.json`` in ``out_dir``."""
+    """Leave-one-well-out over the cored wells; writes ``metrics.json`` and the held-out
+    figures (``confusion_matrix.png``, ``reliability.png``) in ``out_dir``."""
+    from facies_ml.report.plots import Style, evaluation_figures
+
     cfg = _config(config)
     project = load_project(wells_path, core_path, cfg, core_gamma_path)
     metrics, _ = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
     metrics["intake"] = {w.name: w.intake for w in project.cored}
     write_json(Path(out_dir) / "metrics.json", metrics)
+    evaluation_figures(metrics, cfg.facies.labels, Style(cfg.path("plot_style")), out_dir)
     return metrics
 
 

@@ -81,26 +81,20 @@ def score_against_truth(pred: WellPrediction, truth_path: Path, facies_labels: l
 
 def evaluation_sections(metrics: dict[str, Any], curve: pd.DataFrame, cfg: Any,
                         out: Path) -> list[tuple[str, list[str]]]:
-    """Held-out evaluation figures (confusion matrix, learning curve) for the HTML report."""
+    """Held-out evaluation figures (confusion matrix, reliability, learning curve) for the
+    HTML report."""
     from facies_ml.report.html import image_tag, table_html
-    from facies_ml.report.plots import Style, confusion_plot, learning_curve_plot
+    from facies_ml.report.plots import Style, evaluation_figures
 
-    style = Style(cfg.path("plot_style"))
-    labels = cfg.facies.labels
-    k = len(labels)
-    cm = np.zeros((k, k), dtype=int)
-    for m in metrics["wells"].values():
-        cm += np.asarray(m["lithofacies"].get("confusion_matrix", np.zeros((k, k))), dtype=int)
-    fig_dir = out / "evaluation"
-    cm_path = confusion_plot(cm.tolist(), labels, style, fig_dir / "confusion_matrix.png")
-    lc_path = learning_curve_plot(curve, style, fig_dir / "learning_curve.png")
+    figures = evaluation_figures(metrics, cfg.facies.labels, Style(cfg.path("plot_style")),
+                                 out / "evaluation", curve)
     rows = [{"well": w, **{key: m.get(key) for key in (
         "lithofacies_accuracy", "lithofacies_f1_macro", "systems_tract_accuracy_raw",
         "systems_tract_accuracy", "mfs_depth_error", "sb_depth_error", "rule_violations")}}
         for w, m in metrics["wells"].items()]
     return [("Held-out evaluation (leave one well out)",
-             [table_html(pd.DataFrame(rows)), image_tag(cm_path, "confusion matrix"),
-              image_tag(lc_path, "learning curve")])]
+             [table_html(pd.DataFrame(rows))] + [image_tag(path, caption)
+                                                 for caption, path in figures])]
 
 
 def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = None,

@@ -22,6 +22,7 @@ from sklearn.metrics import (
 )
 
 from facies_ml.config import Config
+from facies_ml.lithofacies import reliability_table
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.sequence import pick_surfaces
 from facies_ml.wells import Well
@@ -215,6 +216,8 @@ def leave_one_well_out(
     per_well: dict[str, dict[str, Any]] = {}
     predictions: dict[str, WellPrediction] = {}
     pooled_f_true, pooled_f_pred, pooled_t_true, pooled_t_pred, pooled_t_raw = [], [], [], [], []
+    pooled_f_proba = []
+    proba_cols = [f"p_{lab}" for lab in config.facies.labels]
     for held in cored:
         if progress:
             progress(f"fold: holding out {held.name}")
@@ -228,6 +231,7 @@ def leave_one_well_out(
         yf = lab["lithofacies"].fillna(-1).to_numpy(int)
         pooled_f_true.append(yf[yf >= 0])
         pooled_f_pred.append(pred.table["lithofacies"].to_numpy(int)[yf >= 0])
+        pooled_f_proba.append(pred.table[proba_cols].to_numpy(float)[yf >= 0])
         if "systems_tract" in pred.table:
             yt = pipe.tract_states(lab["systems_tract"].fillna(-1).to_numpy(int))
             ok = yt >= 0
@@ -244,7 +248,10 @@ def leave_one_well_out(
         pooled["systems_tract_accuracy"] = float(accuracy_score(tt, np.concatenate(pooled_t_pred)))
         pooled["systems_tract_accuracy_raw"] = float(
             accuracy_score(tt, np.concatenate(pooled_t_raw)))
-    metrics = {"wells": per_well, "overall": overall_metrics(per_well, pooled)}
+    n_bins = int(config.section("evaluation").get("reliability_bins", 10))
+    reliability = reliability_table(yf_t, np.concatenate(pooled_f_proba), n_bins)
+    metrics = {"wells": per_well, "overall": overall_metrics(per_well, pooled),
+               "reliability": reliability.to_dict("records")}
     return metrics, predictions
 
 

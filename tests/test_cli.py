@@ -62,6 +62,13 @@ def test_evaluate_writes_metrics_per_well(tiny_basin, fast_config, tmp_path, cap
         assert key in metrics["overall"]
     # the forward model's facies are learnable from logs: well above the 1/6 chance level
     assert metrics["overall"]["lithofacies_accuracy"] > 0.4
+    # pooled held-out reliability: every labelled held-out sample once per class
+    n_labelled = sum(int(np.sum(m["lithofacies"]["confusion_matrix"]))
+                     for m in metrics["wells"].values())
+    rel = pd.DataFrame(metrics["reliability"])
+    assert (rel.groupby("class")["n"].sum() == n_labelled).all()
+    for name in ("confusion_matrix.png", "reliability.png"):
+        assert (tmp_path / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
 
 
 def test_train_predict_outputs(trained, tiny_basin, tmp_path, capsys):

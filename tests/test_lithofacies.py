@@ -1,7 +1,7 @@
 """LithofaciesClassifier, SubsetModels, calibration helpers and the feature envelope.
 
 External references: scikit-learn (clone/get_params contract, GroupShuffleSplit,
-brier_score_loss, f1_score) and the FORCE 2020 penalty matrix (SOURCE.md of
+brier_score_loss, f1_score, calibration_curve) and the FORCE 2020 penalty matrix (SOURCE.md of
 /work/shared/data/force2020).
 """
 
@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from sklearn.base import clone
+from sklearn.calibration import calibration_curve
 from sklearn.metrics import brier_score_loss
 
 from facies_ml.applicability import FeatureEnvelope
@@ -129,6 +130,15 @@ def test_brier_better_than_prior_on_separable_set_and_matches_sklearn() -> None:
         assert ours[k] < 0.25 * base[k]
     rel = reliability_table(yt, p, n_bins=10)
     assert rel.groupby("class")["n"].sum().tolist() == [len(yt)] * 3
+    # scikit-learn reference: calibration_curve(strategy="uniform") gives the same non-empty
+    # bins (no probability sits exactly on an interior bin edge here).
+    edges = np.linspace(0, 1, 11)[1:-1]
+    assert not np.isin(p, edges).any()
+    for k in range(3):
+        frac, mean_p = calibration_curve(yt == k, p[:, k], n_bins=10, strategy="uniform")
+        mine = rel[rel["class"] == k]
+        np.testing.assert_allclose(mine["observed_frequency"], frac, atol=1e-12)
+        np.testing.assert_allclose(mine["mean_predicted"], mean_p, atol=1e-12)
     top = rel[rel["lower"] >= 0.9]
     # Confident predictions on a separable set are right most of the time.
     assert (top["observed_frequency"] * top["n"]).sum() / top["n"].sum() > 0.9

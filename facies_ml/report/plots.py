@@ -235,6 +235,28 @@ def learning_curve_plot(curve: pd.DataFrame, style: Style, path: str | Path) -> 
     return _save(fig, path, style)
 
 
+def evaluation_figures(metrics: dict[str, Any], labels: list[str], style: Style,
+                       out_dir: str | Path, curve: pd.DataFrame | None = None
+                       ) -> list[tuple[str, Path]]:
+    """Held-out figures from leave-one-well-out ``metrics``: the confusion matrix summed over
+    the held-out wells, the pooled reliability curve and (with ``curve``) the learning curve.
+    Returns ``(caption, path)`` pairs; files are ``out_dir/<name>.png``."""
+    out_dir = Path(out_dir)
+    k = len(labels)
+    cm = np.zeros((k, k), dtype=int)
+    for m in metrics.get("wells", {}).values():
+        cm += np.asarray(m["lithofacies"].get("confusion_matrix", np.zeros((k, k))), dtype=int)
+    figures = [("confusion matrix", confusion_plot(cm.tolist(), labels, style,
+                                                   out_dir / "confusion_matrix.png"))]
+    if metrics.get("reliability"):
+        figures.append(("reliability", reliability_plot(pd.DataFrame(metrics["reliability"]),
+                                                        style, out_dir / "reliability.png")))
+    if curve is not None and len(curve):
+        figures.append(("learning curve", learning_curve_plot(curve, style,
+                                                              out_dir / "learning_curve.png")))
+    return figures
+
+
 def _save(fig: Any, path: str | Path, style: Style) -> Path:
     from facies_ml.report.outputs import atomic_write
 
