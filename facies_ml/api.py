@@ -17,6 +17,7 @@ import pandas as pd
 from facies_ml import CAUTION
 from facies_ml.batch import (
     WellResult,
+    draw_well_section,
     list_well_files,
     run_batch,
     well_result,
@@ -121,26 +122,47 @@ def train(wells_path: str | Path, core_path: str | Path, model_dir: str | Path,
 
 def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
             version: str | None = None, n_jobs: int = 1, scheduler: str | None = None,
-            plots: bool = False, progress: bool = True) -> dict[str, Any]:
+            plots: bool = False, progress: bool = True, panel_wells: list[str] | None = None,
+            datum_mfs: int | None = None) -> dict[str, Any]:
     """Predict every well under ``wells_path`` with the champion (or ``version``).
 
     One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason.
     Writes per well ``<well>.las|.csv|.parquet``; for all wells ``tops.csv``,
     ``landing_zones.csv``, ``failures.csv``, ``summary.json`` (and with ``plots`` a well
-    section per well, a correlation panel and ``report.html``). ``n_jobs`` > 1 uses local
-    cores (joblib); ``scheduler`` sends the work to a Dask cluster at that address.
+    section per well in ``figures/``, a correlation panel and ``report.html``). ``n_jobs`` > 1
+    uses local cores (joblib); ``scheduler`` sends the work to a Dask cluster at that address.
+
+    The correlation panel (and the sections embedded in the report) show ``panel_wells`` in
+    that order, else the wells of the first ``report.panel_max_wells`` files; the panel is hung
+    on each well's ``datum_mfs``-th MFS counted from the top (default ``report.datum_mfs``).
+    Only those wells' predictions are held in memory.
     """
     pipe, manifest = load_version(model_dir, version)
     out_dir = Path(out_dir)
+    report = pipe.config.section("report")
+    datum = int(datum_mfs if datum_mfs is not None else report.get("datum_mfs", 1))
+    if datum < 1:
+        raise InputError(f"the datum MFS is counted from the top starting at 1, not {datum}")
     files = list_well_files(wells_path)
+    keep: bool | frozenset[str] = False
+    if plots:
+        first = files[:max(1, int(report.get("panel_max_wells", 12)))]
+        keep = frozenset(panel_wells) if panel_wells else frozenset(str(f) for f in first)
     rows = run_batch(pipe, files, out_dir, n_jobs=n_jobs, scheduler=scheduler,
-                     progress=progress, keep_predictions=plots)
+                     progress=progress, keep_predictions=keep,
+                     section_dir=out_dir / "figures" if plots else None)
     preds = [r[1] for r in rows if isinstance(r, tuple)]
     results = [r[0] if isinstance(r, tuple) else r for r in rows]
     summary = write_batch_tables(results, out_dir)
     summary["model_version"] = manifest["version"]
+    if panel_wells:
+        by_name = {p.well.name: p for p in preds}
+        summary["panel_wells_not_predicted"] = [w for w in panel_wells if w not in by_name]
+        preds = [by_name[w] for w in panel_wells if w in by_name]
     if plots and preds:
-        summary["figures"] = write_figures(pipe, preds, out_dir)
+        summary["figures"] = write_figures(pipe, preds, out_dir, datum_index=datum - 1,
+                                           sections_drawn=True,
+                                           n_wells_total=len(summary["wells"]))
     write_json(out_dir / "summary.json", summary)
     return summary
 
@@ -167,10 +189,14 @@ def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, An
 
 def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Path,
                   core_labels: dict[str, pd.DataFrame] | None = None,
-                  extra_sections: list[tuple[str, list[str]]] | None = None) -> dict[str, str]:
-    """A well section per well, one correlation panel, and the self-contained report.html."""
+                  extra_sections: list[tuple[str, list[str]]] | None = None,
+                  datum_index: int = 0, sections_drawn: bool = False,
+                  n_wells_total: int | None = None) -> dict[str, str]:
+    """Well sections of ``preds`` (drawn here unless ``sections_drawn``), one correlation panel
+    of ``preds`` hung on their ``datum_index``-th MFS from the top, and the self-contained
+    report.html embedding them (``n_wells_total``: wells predicted in all, for its notes)."""
     from facies_ml.report.html import image_tag, table_html, write_report
-    from facies_ml.report.plots import Style, correlation_panel, well_section
+    from facies_ml.report.plots import Style, correlation_panel
 
     cfg = pipe.config
     style = Style(cfg.path("plot_style"))
@@ -180,18 +206,26 @@ def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Pa
     sections: list[tuple[str, list[str]]] = list(extra_sections or [])
     well_imgs = []
     for p in preds:
-        path = well_section(p, cfg.facies.labels, tracts, style, fig_dir / f"{p.well.name}_section.png",
-                            core_labels=(core_labels or {}).get(p.well.name))
+        path = fig_dir / f"{p.well.name}_section.png"
+        if not sections_drawn:
+            path = draw_well_section(pipe, p, fig_dir, (core_labels or {}).get(p.well.name))
         figures[p.well.name] = str(path)
         well_imgs.append(image_tag(path, f"well section {p.well.name}"))
-    panel = correlation_panel(preds, tracts, style, fig_dir / "correlation_panel.png")
+    others = (n_wells_total or len(preds)) - len(preds)
+    if others > 0:
+        well_imgs.insert(0, f"<p>{others} more well sections are in <code>figures/</code>; "
+                            "the report embeds the panel wells only.</p>")
+    panel = correlation_panel(preds, tracts, style, fig_dir / "correlation_panel.png",
+                              datum_index=datum_index)
     figures["correlation_panel"] = str(panel)
     landing = pd.concat([landing_summary(p, cfg.section("landing")) for p in preds],
                         ignore_index=True)
     tops = tops_frame([(p.well.name, p.well.depth_unit, p.surfaces) for p in preds])
-    sections += [("Correlation panel", [image_tag(panel, "correlation panel")]),
-                 ("Landing-zone summary (TST + EHST target)", [table_html(landing)]),
-                 ("Predicted surfaces", [table_html(tops)]),
+    scope = (" (panel wells; all wells in the CSV files)" if others > 0 else "")
+    names = ", ".join(p.well.name for p in preds)
+    sections += [(f"Correlation panel: {names}", [image_tag(panel, "correlation panel")]),
+                 ("Landing-zone summary (TST + EHST target)" + scope, [table_html(landing)]),
+                 ("Predicted surfaces" + scope, [table_html(tops)]),
                  ("Well sections", well_imgs)]
     write_report(out_dir / "report.html", "facies_ml prediction report", sections)
     figures["report"] = str(out_dir / "report.html")

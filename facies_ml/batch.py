@@ -93,21 +93,45 @@ def _worker_pipeline(pipe: FaciesPipeline) -> FaciesPipeline:
     return _WORKER_PIPELINES.setdefault(key, pipe)
 
 
+Keep = bool | frozenset[str]
+
+
+def _kept(keep: Keep, well: str, file: str) -> bool:
+    """``keep`` is True/False for every well, or a set of well names and/or file paths."""
+    return keep if isinstance(keep, bool) else (well in keep or file in keep)
+
+
+def draw_well_section(pipe: FaciesPipeline, pred: WellPrediction, fig_dir: str | Path,
+                      core_labels: Any = None) -> Path:
+    """``<fig_dir>/<well>_section.png`` for one prediction (style from the model's config)."""
+    from facies_ml.report.plots import Style, well_section
+
+    cfg = pipe.config
+    return well_section(pred, cfg.facies.labels, list(getattr(pipe, "tract_names_", [])),
+                        Style(cfg.path("plot_style")),
+                        Path(fig_dir) / f"{pred.well.name}_section.png", core_labels=core_labels)
+
+
 def predict_files(pipe: FaciesPipeline, paths: list[str], out_dir: str | Path | None,
-                  write_files: bool = True, keep_predictions: bool = False,
-                  predict_threads: int | None = None) -> list[list[Any]]:
+                  write_files: bool = True, keep_predictions: Keep = False,
+                  predict_threads: int | None = None, section_dir: str | Path | None = None
+                  ) -> list[list[Any]]:
     """:func:`predict_file` over a chunk of files (one task), results per file.
     ``predict_threads``: LightGBM threads per prediction in this task (``None`` = as trained)."""
     pipe = _worker_pipeline(pipe)
     pipe.set_predict_threads(predict_threads)
-    return [predict_file(pipe, p, out_dir, write_files, keep_predictions) for p in paths]
+    return [predict_file(pipe, p, out_dir, write_files, keep_predictions, section_dir)
+            for p in paths]
 
 
 def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | None,
-                 write_files: bool = True, keep_predictions: bool = False) -> list[Any]:
-    """Read, condition and predict every well in one file; write its outputs.
+                 write_files: bool = True, keep_predictions: Keep = False,
+                 section_dir: str | Path | None = None) -> list[Any]:
+    """Read, condition and predict every well in one file; write its outputs (and, with
+    ``section_dir``, its well-section figure).
 
-    Returns :class:`WellResult` rows (and the full predictions if ``keep_predictions``).
+    Returns :class:`WellResult` rows, as ``(row, prediction)`` pairs for the wells that
+    ``keep_predictions`` selects (True = all; or a set of well names and/or file paths).
     """
     from facies_ml.wells import read_wells
 
@@ -130,18 +154,25 @@ def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | N
         t2 = time.perf_counter()
         if write_files and out_dir is not None:
             write_well_outputs(pipe, pred, out_dir)
+        t3 = time.perf_counter()
+        if section_dir is not None:
+            draw_well_section(pipe, pred, section_dir)
         res = well_result(pipe, pred, str(path))
         res.timings = {"read_condition_s": t_read / max(1, len(wells)), "predict_s": t2 - t1,
-                       "write_s": time.perf_counter() - t2}
-        results.append((res, pred) if keep_predictions else res)
+                       "write_s": t3 - t2, "plot_s": time.perf_counter() - t3}
+        results.append((res, pred) if _kept(keep_predictions, w.name, str(path)) else res)
     return results
 
 
 def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | None,
               n_jobs: int = 1, scheduler: str | None = None, progress: bool = True,
-              write_files: bool = True, keep_predictions: bool = False) -> list[Any]:
+              write_files: bool = True, keep_predictions: Keep = False,
+              section_dir: str | Path | None = None) -> list[Any]:
     """Predict ``files`` serially (n_jobs=1), on local cores (joblib) or on a Dask cluster
-    (``scheduler`` = its address, e.g. ``tcp://127.0.0.1:8786``). Results in file order."""
+    (``scheduler`` = its address, e.g. ``tcp://127.0.0.1:8786``). Results in file order.
+
+    Only the predictions ``keep_predictions`` selects come back whole (memory stays flat for
+    thousands of wells); ``section_dir`` makes every task draw its wells' sections there."""
     bar = tqdm(total=len(files), desc="wells", unit="file", disable=not progress)
     workers = 1 if (n_jobs == 1 and not scheduler) else max(2, n_jobs)
     size = max(1, min(25, -(-len(files) // (workers * 4))))   # ~4 chunks per worker
@@ -167,7 +198,8 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
         try:
             remote_pipe = client.scatter(pipe, broadcast=True)
             futures = [client.submit(predict_files, remote_pipe, chunk, out_dir, write_files,
-                                     keep_predictions, threads, pure=False) for chunk in chunks]
+                                     keep_predictions, threads, section_dir, pure=False)
+                       for chunk in chunks]
             for fut in as_completed(futures):
                 bar.update(len(chunks[futures.index(fut)]))
             out = [rows for chunk_rows in client.gather(futures) for rows in chunk_rows]
@@ -175,14 +207,15 @@ def run_batch(pipe: FaciesPipeline, files: list[Path], out_dir: str | Path | Non
             client.close()
     elif n_jobs == 1:
         for chunk in chunks:
-            out.extend(predict_files(pipe, chunk, out_dir, write_files, keep_predictions))
+            out.extend(predict_files(pipe, chunk, out_dir, write_files, keep_predictions,
+                                     None, section_dir))
             bar.update(len(chunk))
     else:
         from joblib import Parallel, delayed
 
         par = Parallel(n_jobs=n_jobs, return_as="generator")
-        tasks = (delayed(predict_files)(pipe, c, out_dir, write_files, keep_predictions, threads)
-                 for c in chunks)
+        tasks = (delayed(predict_files)(pipe, c, out_dir, write_files, keep_predictions, threads,
+                                        section_dir) for c in chunks)
         for chunk, res in zip(chunks, par(tasks), strict=True):
             out.extend(res)
             bar.update(len(chunk))

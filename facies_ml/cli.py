@@ -62,6 +62,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--scheduler", help="Dask scheduler address (e.g. tcp://host:8786) to run on")
     p.add_argument("--plots", action="store_true",
                    help="also draw a well section per well, a correlation panel and report.html")
+    p.add_argument("--panel-wells", help="comma-separated wells for the correlation panel, in "
+                   "order (default: the first report.panel_max_wells files)")
+    p.add_argument("--datum-mfs", type=int, help="hang the panel on this MFS, counted from the "
+                   "top of each well (default report.datum_mfs = 1)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
 
     p = sub.add_parser("retrain", help="champion/challenger retrain with new cored wells")
@@ -119,11 +123,17 @@ def run(args: argparse.Namespace) -> int:
     elif args.command == "predict":
         summary = api.predict(args.model_dir, args.wells, args.out, args.model_version,
                               n_jobs=args.jobs, scheduler=args.scheduler, plots=args.plots,
-                              progress=not args.no_progress)
+                              progress=not args.no_progress,
+                              panel_wells=[w.strip() for w in args.panel_wells.split(",")
+                                           if w.strip()] if args.panel_wells else None,
+                              datum_mfs=args.datum_mfs)
         print(f"predicted {len(summary['wells'])} wells with model {summary['model_version']}; "
               f"{len(summary['failures'])} failed (see failures.csv); outputs in {args.out}")
         for f in summary["failures"]:
             print(f"  failed: {f['well'] or f['file']}: {f['reason']}")
+        if summary.get("panel_wells_not_predicted"):
+            print("  not on the panel (no such well predicted): "
+                  + ", ".join(summary["panel_wells_not_predicted"]))
     elif args.command == "retrain":
         result = api.retrain(args.model_dir, args.wells, args.core, args.config,
                              args.core_gamma, force=args.force, progress=_progress)

@@ -95,6 +95,30 @@ def test_train_predict_outputs(trained, tiny_basin, tmp_path, capsys):
     assert (out / "landing_zones.csv").is_file()
 
 
+def test_predict_panel_wells_and_datum(trained, tiny_basin, tmp_path, capsys):
+    # Every well gets its section file; only the chosen panel wells are held in memory,
+    # drawn on the panel and embedded in the report; an unknown name is reported, not fatal.
+    out = tmp_path / "pred"
+    wells = sorted(p.stem for p in tiny_basin.glob("*.las"))
+    rc = main(["predict", "--model-dir", str(trained), "--wells", str(tiny_basin),
+               "--out", str(out), "--no-progress", "--plots", "--datum-mfs", "2",
+               "--panel-wells", f"{wells[2]},QM-NOWHERE,{wells[0]}"])
+    assert rc == 0
+    assert "QM-NOWHERE" in capsys.readouterr().out
+    assert sorted(p.name for p in (out / "figures").glob("*_section.png")) == \
+           [f"{w}_section.png" for w in wells]
+    report = (out / "report.html").read_text()
+    assert f"Correlation panel: {wells[2]}, {wells[0]}" in report
+    assert report.count("data:image/png") == 1 + 2  # panel + the two panel wells' sections
+    assert "more well sections are in" in report
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["panel_wells_not_predicted"] == ["QM-NOWHERE"]
+    rc = main(["predict", "--model-dir", str(trained), "--wells", str(tiny_basin),
+               "--out", str(tmp_path / "bad"), "--no-progress", "--plots", "--datum-mfs", "0"])
+    assert rc == 2
+    assert "datum MFS" in capsys.readouterr().err
+
+
 def test_predict_one_bad_file_does_not_abort(trained, tiny_basin, tmp_path, capsys):
     wells = tmp_path / "wells"
     wells.mkdir()
