@@ -15,7 +15,9 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from matplotlib.collections import PolyCollection  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
+from matplotlib.ticker import NullFormatter  # noqa: E402
 
 from facies_ml.config import read_yaml  # noqa: E402
 from facies_ml.features import upsection_slope  # noqa: E402
@@ -48,11 +50,19 @@ def _column(ax: Any, depth: np.ndarray, codes: np.ndarray, colours: list[str]) -
     change = np.flatnonzero(np.diff(codes)) + 1
     starts = np.concatenate([[0], change])
     stops = np.concatenate([change, [len(codes)]])
-    for a, b in zip(starts, stops, strict=True):
-        c = int(codes[a])
-        if c < 0:
-            continue
-        ax.axhspan(depth[a] - step / 2, depth[b - 1] + step / 2, color=colours[c], lw=0)
+    keep = codes[starts] >= 0
+    starts, stops = starts[keep], stops[keep]
+    top, base = depth[starts] - step / 2, depth[stops - 1] + step / 2
+    # one collection of rectangles (one per run), far faster than a patch per run
+    verts = np.stack([np.column_stack([np.zeros_like(top), top]),
+                      np.column_stack([np.ones_like(top), top]),
+                      np.column_stack([np.ones_like(top), base]),
+                      np.column_stack([np.zeros_like(top), base])], axis=1)
+    ax.add_collection(PolyCollection(verts, facecolors=[colours[int(c)] for c in codes[starts]],
+                                     linewidths=0, transform=ax.get_yaxis_transform()))
+    ax.update_datalim([(0.0, float(depth.min() - step / 2)), (0.0, float(depth.max() + step / 2))],
+                      updatex=False)
+    ax.autoscale_view(scalex=False)
     ax.set_xticks([])
 
 
@@ -88,6 +98,7 @@ def well_section(pred: WellPrediction, facies_labels: list[str], tract_names: li
     if "rt_ohmm" in curves:
         ax.semilogx(np.clip(curves["rt_ohmm"].to_numpy(float), 1e-2, None), depth,
                     color="#1b4f72", lw=0.6)
+        ax.xaxis.set_minor_formatter(NullFormatter())  # a narrow span labels minor ticks
         ax.set_xlabel("deep resistivity (ohm.m)")
     else:
         ax.text(0.5, 0.5, "no resistivity", transform=ax.transAxes, ha="center")
