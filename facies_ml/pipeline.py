@@ -221,7 +221,11 @@ class FaciesPipeline:
             table[f"p_{lab}"] = proba[:, k]
         for col in ("toc_passey_density", "toc_passey_sonic"):
             if col in X:
-                table["organic_proxy_toc_wt_pct"] = X[col].to_numpy(float)
+                # Passey et al. (1990): a negative Delta log R separation carries no organic
+                # signal, so the reported proxy is floored at 0 wt % (the model feature keeps
+                # the signed value); NaN where the curves are missing stays NaN.
+                toc = X[col].to_numpy(float)
+                table["organic_proxy_toc_wt_pct"] = np.where(toc < 0.0, 0.0, toc)
                 break
         X_model = X.reindex(columns=self.feature_names_)
         out_flag, outside = self.envelope_.assess(X_model)

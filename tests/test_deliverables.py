@@ -61,6 +61,26 @@ def test_plots_for_a_well_missing_curves(fitted, tmp_path):
         assert p.read_bytes()[:8] == PNG_SIGNATURE and p.stat().st_size > 5000
 
 
+def test_reported_organic_proxy_is_passey_floored_at_zero(fitted):
+    # Passey et al. (1990), TOC = Delta log R x 10^(2.297 - 0.1688 LOM): a negative separation
+    # means no organic signal, so the reported proxy is max(0, TOC); missing stays missing.
+    from facies_ml.features import build_features
+
+    pipe, project = fitted
+    well = project.wells[0]
+    pred = pipe.predict_well(well)
+    norm = pipe.gr_normalizer_.transform(well) if pipe.gr_normalizer_ is not None else well
+    X = build_features(norm.curves, norm.step, pipe.config.section("features"),
+                       pipe.feature_reference_)
+    col = "toc_passey_density" if "toc_passey_density" in X else "toc_passey_sonic"
+    raw = X[col].to_numpy(float)
+    got = pred.table["organic_proxy_toc_wt_pct"].to_numpy(float)
+    assert (raw < 0).any() and (raw > 0).any()  # the check has teeth on this well
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(raw))
+    ok = ~np.isnan(raw)
+    np.testing.assert_allclose(got[ok], np.maximum(raw[ok], 0.0))
+
+
 def test_landing_window_inside_target(fitted):
     pipe, project = fitted
     pred = pipe.predict_well(project.wells[0])
