@@ -181,7 +181,7 @@ def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, An
         "wells": {r.well: {"file": r.file, "model_used": r.model_used,
                            "out_of_range_fraction": round(r.out_of_range_fraction, 4),
                            "surfaces": len(r.surfaces), "rule_violations": r.rule_violations,
-                           "intake": r.intake} for r in ok},
+                           "notes": r.notes, "intake": r.intake} for r in ok},
         "failures": failures,
         "caution": CAUTION,
     }
@@ -209,8 +209,9 @@ def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Pa
         path = fig_dir / f"{p.well.name}_section.png"
         if not sections_drawn:
             path = draw_well_section(pipe, p, fig_dir, (core_labels or {}).get(p.well.name))
-        figures[p.well.name] = str(path)
-        well_imgs.append(image_tag(path, f"well section {p.well.name}"))
+        if path.is_file():  # a worker that could not draw it noted why in summary.json
+            figures[p.well.name] = str(path)
+            well_imgs.append(image_tag(path, f"well section {p.well.name}"))
     others = (n_wells_total or len(preds)) - len(preds)
     if others > 0:
         well_imgs.insert(0, f"<p>{others} more well sections are in <code>figures/</code>; "

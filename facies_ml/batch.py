@@ -25,6 +25,7 @@ from facies_ml.report.outputs import (
     write_prediction_las,
     write_prediction_parquet,
 )
+from facies_ml.wells.las import one_line
 
 WELL_SUFFIXES = (".las", ".csv", ".parquet", ".pq")
 
@@ -44,6 +45,7 @@ class WellResult:
     landing: list[dict[str, Any]] = field(default_factory=list)
     timings: dict[str, float] = field(default_factory=dict)
     failure: str | None = None
+    notes: list[str] = field(default_factory=list)  # e.g. a figure that could not be drawn
 
 
 def list_well_files(path: str | Path, exclude: Iterable[str] = ()) -> list[Path]:
@@ -155,9 +157,14 @@ def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | N
         if write_files and out_dir is not None:
             write_well_outputs(pipe, pred, out_dir)
         t3 = time.perf_counter()
+        notes = []
         if section_dir is not None:
-            draw_well_section(pipe, pred, section_dir)
+            try:
+                draw_well_section(pipe, pred, section_dir)
+            except Exception as exc:  # noqa: BLE001 - a figure never aborts the batch
+                notes.append(f"well section not drawn ({one_line(exc)})")
         res = well_result(pipe, pred, str(path))
+        res.notes = notes
         res.timings = {"read_condition_s": t_read / max(1, len(wells)), "predict_s": t2 - t1,
                        "write_s": t3 - t2, "plot_s": time.perf_counter() - t3}
         results.append((res, pred) if _kept(keep_predictions, w.name, str(path)) else res)

@@ -131,6 +131,9 @@ def run(args: argparse.Namespace) -> int:
               f"{len(summary['failures'])} failed (see failures.csv); outputs in {args.out}")
         for f in summary["failures"]:
             print(f"  failed: {f['well'] or f['file']}: {f['reason']}")
+        for name, info in summary["wells"].items():
+            for note in info.get("notes", []):
+                print(f"  note: {name}: {note}")
         if summary.get("panel_wells_not_predicted"):
             print("  not on the panel (no such well predicted): "
                   + ", ".join(summary["panel_wells_not_predicted"]))

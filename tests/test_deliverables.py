@@ -146,6 +146,25 @@ def test_joblib_matches_serial(fitted, tiny_basin, tmp_path):
                                       pd.read_parquet(tmp_path / "p" / f"{b.well}.parquet"))
 
 
+def test_a_figure_that_fails_never_aborts_the_batch(fitted, tiny_basin, tmp_path, monkeypatch):
+    # Batch contract: one bad well never aborts the batch; a section that cannot be drawn
+    # becomes a note on that well, and its prediction files are still written.
+    import facies_ml.batch as batch
+
+    pipe, _ = fitted
+    files = list_well_files(tiny_basin)[:2]
+
+    def broken(pipe_, pred, fig_dir, core_labels=None):
+        raise RuntimeError("renderer exploded\nsecond line")
+
+    monkeypatch.setattr(batch, "draw_well_section", broken)
+    rows = run_batch(pipe, files, tmp_path, progress=False, section_dir=tmp_path / "figures")
+    assert len(rows) == 2 and all(r.failure is None for r in rows)
+    for r in rows:
+        assert r.notes == ["well section not drawn (RuntimeError: renderer exploded)"]
+        assert (tmp_path / f"{r.well}.las").is_file()
+
+
 def test_fixed_decimal_rows_match_printf_formatting():
     # Reference: Python's float formatting "{:.5f}" (the C printf "%.5f" conversion). Rows
     # with a value near a rounding tie at the 6th decimal are left out: there binary rounding
