@@ -24,6 +24,7 @@ from facies_ml.evaluation import (
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.outputs import write_json, write_table
 from facies_ml.store import save_version
+from facies_ml.wells.clean import nearest_samples
 
 DEMO_WELLS = Path(__file__).resolve().parent.parent / "synthetic_wells"
 
@@ -66,8 +67,8 @@ def score_against_truth(pred: WellPrediction, truth_path: Path, facies_labels: l
     truth = pd.read_csv(truth_path)
     depth_work = np.asarray(pred.well.from_original_depth(truth["depth"].to_numpy(float)))
     table = pred.table
-    idx = np.clip(np.searchsorted(table.index.to_numpy(float), depth_work), 0, len(table) - 1)
-    ok = np.abs(table.index.to_numpy(float)[idx] - depth_work) <= pred.well.step / 2 + 1e-9
+    idx = nearest_samples(table.index.to_numpy(float), depth_work, pred.well.step / 2)
+    ok = idx >= 0
     out: dict[str, Any] = {}
     lab_true = truth["lithofacies"].astype(str).to_numpy()[ok]
     lab_pred = table["lithofacies_label"].to_numpy()[idx[ok]]

@@ -20,6 +20,7 @@ import pandas as pd
 
 from facies_ml import CAUTION, __version__
 from facies_ml.pipeline import WellPrediction
+from facies_ml.wells.clean import nearest_samples
 
 _UMASK = os.umask(0)
 os.umask(_UMASK)
@@ -147,19 +148,6 @@ LAS_NULL = -999.25
 WELL_ITEMS = ("UWI", "COMP", "FLD", "LOC", "DATE")  # ~Well items carried over from the input
 
 
-def _nearest_rows(grid: np.ndarray, depth: np.ndarray, half_step: float) -> np.ndarray:
-    """Index into the sorted ``grid`` of the sample nearest each ``depth``; -1 where none is
-    within ``half_step`` (same unit)."""
-    if len(grid) == 0:
-        return np.full(len(depth), -1)
-    j = np.clip(np.searchsorted(grid, depth), 1, max(1, len(grid) - 1))
-    if len(grid) == 1:
-        j = np.zeros(len(depth), dtype=int)
-    else:
-        j = np.where(np.abs(depth - grid[j - 1]) <= np.abs(grid[j] - depth), j - 1, j)
-    return np.where(np.abs(grid[j] - depth) <= half_step * (1 + 1e-6) + 1e-9, j, -1)
-
-
 def _las_input_columns(pred: WellPrediction, frame: pd.DataFrame
                        ) -> tuple[list[tuple[str, str, str, np.ndarray]], np.ndarray]:
     """(depth + input curves as LAS columns, index of the prediction row for each LAS row).
@@ -179,7 +167,7 @@ def _las_input_columns(pred: WellPrediction, frame: pd.DataFrame
     depth = orig.index.to_numpy(float)
     grid = np.asarray(well.to_original_depth(frame.index.to_numpy(float)), dtype=float)
     half = 0.5 * abs(float(well.to_original_depth(well.step)))
-    rows = _nearest_rows(grid, depth, half)
+    rows = nearest_samples(grid, depth, half)
     name = str(orig.index.name or "DEPT")
     columns = [(name.replace(":", "_"), well.original_units.get(name, "")
                 or well.original_depth_unit.upper(), "depth (as in the input file)", depth)]

@@ -69,6 +69,21 @@ def despike(values: np.ndarray, window: int, threshold: float,
     return out, int(spikes.sum())
 
 
+def nearest_samples(grid: np.ndarray, depth: np.ndarray, half_step: float) -> np.ndarray:
+    """Index into the increasing ``grid`` of the sample nearest each ``depth`` (same unit);
+    -1 where none lies within ``half_step``."""
+    grid = np.asarray(grid, dtype=float)
+    depth = np.asarray(depth, dtype=float)
+    if len(grid) == 0:
+        return np.full(len(depth), -1)
+    if len(grid) == 1:
+        j = np.zeros(len(depth), dtype=int)
+    else:
+        j = np.clip(np.searchsorted(grid, depth), 1, len(grid) - 1)
+        j = np.where(np.abs(depth - grid[j - 1]) <= np.abs(grid[j] - depth), j - 1, j)
+    return np.where(np.abs(grid[j] - depth) <= half_step * (1 + 1e-6) + 1e-9, j, -1)
+
+
 def regular_grid(top: float, bottom: float, step: float) -> np.ndarray:
     """Depths k*step (k integer) from the first multiple >= ``top`` to the last <= ``bottom``."""
     k0 = int(np.ceil(top / step - 1e-6))
