@@ -129,26 +129,38 @@ def build_well(raw: RawWell, config: Config) -> Well:
         notes.append("depth was not increasing downward; rows sorted by depth")
     rows, d = rows[order], d[order]
 
-    original, original_units, original_descr = _original_curves(raw, rows, d, nulls)
-
-    # roles
+    # Every file curve is converted once: kept as read (the well's ``original``, file
+    # mnemonics) and, when the alias table knows it, a candidate for its role. The role steps
+    # below start with a unit conversion that makes a new array, so the original is untouched.
     curves_found: list[dict[str, Any]] = []
     candidates: dict[str, list[tuple[int, int, RawCurve, np.ndarray]]] = {}
+    original_cols: dict[str, np.ndarray] = {}
+    original_units = {raw.depth_mnemonic: raw.depth_unit_text}
+    original_descr: dict[str, str] = {}
     n_non_numeric = n_null = 0
     for i, c in enumerate(raw.curves):
         role = aliases.role_of(c.mnemonic)
         curves_found.append({"mnemonic": str(c.mnemonic), "unit": str(c.unit or ""), "role": role})
-        if role is None:
-            continue
         vals, bad = clean.to_numeric(c.values)
         if len(vals) != n:
+            if role is None:
+                continue  # not a curve we use: left out of the original too
             raise InputError(f"curve has {len(vals)} values for {n} depth rows", curve=c.mnemonic,
                              **where)
         vals, k = clean.replace_nulls(vals, nulls)
         vals = vals[rows]
+        name = str(c.mnemonic)
+        while name in original_cols or name == raw.depth_mnemonic:
+            name += "_"
+        original_cols[name] = vals
+        original_units[name] = str(c.unit or "")
+        original_descr[name] = str(c.descr or "")
+        if role is None:
+            continue
         n_non_numeric += bad
         n_null += k
         candidates.setdefault(role, []).append((aliases.rank(role, c.mnemonic), i, c, vals))
+    original = pd.DataFrame(original_cols, index=pd.Index(d, name=raw.depth_mnemonic))
     if n_non_numeric:
         dropped["non_numeric_cells"] = n_non_numeric
     if n_null:
@@ -287,28 +299,4 @@ def build_well(raw: RawWell, config: Config) -> Well:
                 original_depth_unit=raw.depth_unit, step=step, source=raw.source, flags=flags,
                 header=header, intake=intake, original=original, original_units=original_units,
                 original_descr=original_descr)
-
-
-def _original_curves(raw: RawWell, rows: np.ndarray, depth: np.ndarray, nulls: list[float]
-                     ) -> tuple[pd.DataFrame, dict[str, str], dict[str, str]]:
-    """Every file curve as read (numbers; NULL sentinels and text -> NaN, no other change) on
-    the file's own depths (``rows`` kept, sorted downward), named by the file mnemonics; their
-    units (the index's under the index name) and descriptions. Curves of another length are
-    left out (the role loop reports those)."""
-    columns: dict[str, np.ndarray] = {}
-    units = {raw.depth_mnemonic: raw.depth_unit_text}
-    descr: dict[str, str] = {}
-    for c in raw.curves:
-        vals, _ = clean.to_numeric(c.values)
-        if len(vals) != len(raw.depth):
-            continue
-        vals, _ = clean.replace_nulls(vals, nulls)
-        name = str(c.mnemonic)
-        while name in columns or name == raw.depth_mnemonic:
-            name += "_"
-        columns[name] = vals[rows]
-        units[name] = str(c.unit or "")
-        descr[name] = str(c.descr or "")
-    frame = pd.DataFrame(columns, index=pd.Index(depth, name=raw.depth_mnemonic))
-    return frame, units, descr
 
