@@ -92,9 +92,7 @@ def true_surfaces(depth: np.ndarray, tracts: np.ndarray, rules: Any) -> list[Any
     """Surfaces implied by interpreted tract labels (top-down arrays), per labelled run."""
     out = []
     for start, stop in labelled_runs(tracts):
-        path = tracts[start:stop][::-1]
-        post = np.eye(len(rules.states))[path]
-        out.extend(pick_surfaces(depth[start:stop][::-1], path, post, rules))
+        out.extend(pick_surfaces(depth[start:stop][::-1], tracts[start:stop][::-1], rules))
     return out
 
 

@@ -28,7 +28,9 @@ from facies_ml.config import Config
 from facies_ml.errors import InputError
 from facies_ml.features import build_features, feature_reference
 from facies_ml.lithofacies import LithofaciesClassifier, SubsetModels
-from facies_ml.sequence import TractSequenceModel, load_rules, pick_surfaces
+from facies_ml.sequence import TractSequenceModel, load_rules
+from facies_ml.sequence.evidence import tract_evidence_matrix
+from facies_ml.sequence.surfaces import SurfaceChecks
 from facies_ml.wells import GRNormalizer, Well
 
 UNLABELLED = -1
@@ -121,28 +123,10 @@ class FaciesPipeline:
         self.rules_ = load_rules(cfg.path("sequence_rules"))
         self.tract_names_ = list(self.rules_.states)
         yt = self.tract_states(yt)
-        has_t = yt >= 0
         self.tract_model_ = None
         self.sequence_model_ = None
-        if has_t.sum() > 0:
-            tract_params = dict(params, class_weight=None)
-            self.tract_model_ = LithofaciesClassifier(**tract_params).fit(
-                X_all[has_t], yt[has_t], groups=g[has_t], n_classes=len(self.tract_names_))
-            self.tract_subset_models_ = SubsetModels(
-                partial(LithofaciesClassifier, **tract_params), X_all[has_t], yt[has_t], g[has_t],
-                n_classes=len(self.tract_names_))
-            counts = np.bincount(yt[has_t], minlength=len(self.tract_names_)).astype(float)
-            self.tract_prior_ = (counts + 1.0) / (counts + 1.0).sum()
-            seqs, start = [], 0
-            for part in y_tract:
-                part_mapped = yt[start:start + len(part)]
-                start += len(part)
-                seqs.append(part_mapped[::-1].copy())  # up-section: deepest sample first
-            seq_cfg = cfg.section("sequence")
-            self.sequence_model_ = TractSequenceModel(
-                self.rules_, prior_count=float(seq_cfg.get("prior_count", 1.0)),
-                emission_weight=float(seq_cfg.get("emission_weight", 1.0)),
-            ).fit(seqs, step=cfg.step, depth_unit=cfg.working_unit)
+        if (yt >= 0).sum() > 0:
+            self._fit_sequence_stage(frames, keep, y_facies, y_tract, params)
         env = cfg.section("applicability")
         self.envelope_ = FeatureEnvelope(float(env.get("lower_quantile", 0.005)),
                                          float(env.get("upper_quantile", 0.995)),
@@ -156,6 +140,84 @@ class FaciesPipeline:
         digest.update(yt.tobytes())
         self.fit_id_ = digest.hexdigest()[:16]
         return self
+
+    def _facies_oof(self, frames: list[pd.DataFrame], y_facies: list[np.ndarray],
+                    keep: list[str], params: dict[str, Any]) -> list[np.ndarray]:
+        """Held-out lithofacies probabilities of each training well: the lithofacies model
+        refitted without that well (the way an offset well sees it). With one labelled well
+        the in-sample probabilities are used."""
+        n_facies = len(self.config.facies.classes)
+        labelled = [k for k, y in enumerate(y_facies) if (y >= 0).any()]
+        out = []
+        for k, X in enumerate(frames):
+            others = [j for j in labelled if j != k]
+            if not others:
+                model = self.facies_model_
+            else:
+                Xo = pd.concat([frames[j] for j in others], ignore_index=True).reindex(
+                    columns=keep)
+                yo = np.concatenate([y_facies[j] for j in others])
+                go = np.concatenate([np.full(len(frames[j]), j) for j in others])
+                ok = yo >= 0
+                model = LithofaciesClassifier(**params).fit(Xo[ok], yo[ok], groups=go[ok],
+                                                            n_classes=n_facies)
+            out.append(model.predict_proba(X.reindex(columns=model.feature_names_in_)))
+        return out
+
+    def _fit_sequence_stage(self, frames: list[pd.DataFrame], keep: list[str],
+                            y_facies: list[np.ndarray], y_tract: list[np.ndarray],
+                            params: dict[str, Any]) -> None:
+        """Tract evidence model on log features + held-out lithofacies probabilities, the
+        semi-Markov sequence model on the core tracts, and its evidence weight calibrated on
+        held-out tract posteriors of the training wells."""
+        cfg = self.config
+        seq = cfg.section("sequence")
+        labels = cfg.facies.labels
+        windows = [float(w) for w in seq["facies_windows"]]
+        step = cfg.step
+        facies_oof = self._facies_oof(frames, y_facies, keep, params)
+        evid = [tract_evidence_matrix(X.reindex(columns=keep), p, labels, step, windows)
+                for X, p in zip(frames, facies_oof, strict=True)]
+        y_states = [self.tract_states(y) for y in y_tract]
+        E_all = pd.concat(evid, ignore_index=True)
+        yt = np.concatenate(y_states)
+        g = np.concatenate([np.full(len(E), k) for k, E in enumerate(evid)])
+        has_t = yt >= 0
+        n_tracts = len(self.tract_names_)
+        tract_params = dict(params, class_weight=None)
+        self.evidence_windows_ = windows
+        self.tract_model_ = LithofaciesClassifier(**tract_params).fit(
+            E_all[has_t], yt[has_t], groups=g[has_t], n_classes=n_tracts)
+        self.tract_subset_models_ = SubsetModels(
+            partial(LithofaciesClassifier, **tract_params), E_all[has_t], yt[has_t], g[has_t],
+            n_classes=n_tracts)
+        dur = seq["duration"]
+        self.sequence_model_ = TractSequenceModel(
+            self.rules_, duration_model=str(dur["model"]),
+            prior_count=float(seq["prior_count"]),
+            duration_prior_runs=float(dur["prior_runs"]),
+            duration_prior_log_sigma=float(dur["prior_log_sigma"]),
+            duration_log_sigma_floor=float(dur["log_sigma_floor"]),
+            evidence_weight=float(seq["evidence_weight"]),
+        ).fit(y_states, step=step, depth_unit=cfg.working_unit)
+        # held-out tract posteriors of each training well -> evidence weight
+        wells_t = [k for k, y in enumerate(y_states) if (y >= 0).any()]
+        held_post, held_lab = [], []
+        if len(wells_t) >= 2 and len(seq["evidence_weight_grid"]) > 1:
+            for k in wells_t:
+                tr = (g != k) & has_t
+                m = LithofaciesClassifier(**tract_params).fit(
+                    E_all[tr], yt[tr], groups=g[tr], n_classes=n_tracts)
+                held_post.append(m.predict_proba(evid[k].reindex(columns=m.feature_names_in_)))
+                held_lab.append(y_states[k])
+            self.evidence_calibration_ = self.sequence_model_.calibrate_weight(
+                held_post, held_lab, [float(w) for w in seq["evidence_weight_grid"]])
+        ch = seq["checks"]
+        self.surface_checks_ = SurfaceChecks(
+            mfs_gr_window=float(ch["mfs_gr_window"]), gr_smoothing=float(ch["gr_smoothing"]),
+            sb_trend_window=float(ch["sb_trend_window"]),
+            low_confidence=float(ch["low_confidence"]),
+            failed_check_confidence=float(ch["failed_check_confidence"]))
 
     def _tract_index_map(self) -> np.ndarray:
         """Map a core-file tract index (scheme order) to the rule-table state index."""
@@ -234,35 +296,25 @@ class FaciesPipeline:
         surfaces: list[Any] = []
         viol_raw = viol = 0
         if self.tract_model_ is not None and self.sequence_model_ is not None:
+            E = tract_evidence_matrix(X.reindex(columns=self.feature_names_), proba,
+                                      labels, well.step, self.evidence_windows_)
             tract_model = self.tract_model_
-            if missing:
-                tract_model, _ = self.tract_subset_models_.model_for(have, well=well.name)
-            tract_X = X.reindex(columns=tract_model.feature_names_in_)
-            tract_post = np.clip(tract_model.predict_proba(tract_X), 1e-9, 1.0)
-            raw_path = tract_post.argmax(axis=1)
-            loglik = np.log(tract_post)
-            emission = str(cfg.section("sequence").get("emission", "scaled_likelihood"))
-            if emission == "scaled_likelihood":  # posterior / prior (Bourlard & Morgan, 1994)
-                loglik = loglik - np.log(self.tract_prior_)[None, :]
-            elif emission != "posterior":
-                raise InputError(f"sequence.emission must be 'scaled_likelihood' or 'posterior', "
-                                 f"not {emission!r}")
-            result = self.sequence_model_.decode(loglik[::-1])  # decode up-section
-            path = result.path[::-1]
-            post = result.posterior[::-1]
-            names = np.asarray(self.tract_names_, dtype=object)
-            table["systems_tract_raw"] = raw_path
-            table["systems_tract"] = path
-            table["systems_tract_label"] = names[path]
-            for k, name in enumerate(self.tract_names_):
-                table[f"p_{name}"] = post[:, k]
+            present = set(E.columns[E.notna().any().to_numpy()])
+            if any(f not in present for f in tract_model.feature_names_in_):
+                tract_model, _ = self.tract_subset_models_.model_for(
+                    [f for f in tract_model.feature_names_in_ if f in present], well=well.name)
+            tract_post = tract_model.predict_proba(E.reindex(columns=tract_model.feature_names_in_))
             gr = well.curves["gr_api"].to_numpy(float) if "gr_api" in well.curves else None
-            surfaces = pick_surfaces(
-                X.index.to_numpy(float)[::-1], result.path, result.posterior, self.rules_,
-                gr=None if gr is None else gr[::-1],
-                mfs_gr_window=float(cfg.section("sequence").get("mfs_gr_window", 20.0)))
-            viol_raw = int(self.rules_.count_violations(raw_path[::-1]))
-            viol = int(self.rules_.count_violations(result.path))
+            decoded = self.sequence_model_.decode_well(
+                tract_post, X.index.to_numpy(float), gr, self.surface_checks_)
+            names = np.asarray(self.tract_names_, dtype=object)
+            table["systems_tract_raw"] = tract_post.argmax(axis=1)
+            table["systems_tract"] = decoded.path
+            table["systems_tract_label"] = names[decoded.path]
+            for k, name in enumerate(self.tract_names_):
+                table[f"p_{name}"] = decoded.posterior[:, k]
+            surfaces = decoded.surfaces
+            viol_raw, viol = decoded.violations_raw, decoded.violations
         return WellPrediction(
             well=well, table=table, surfaces=surfaces, model_used=model_name,
             out_of_range_fraction=float(np.mean(out_flag)) if len(out_flag) else 0.0,

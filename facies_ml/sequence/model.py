@@ -1,11 +1,15 @@
-"""Systems-tract sequence model: learned transitions and thicknesses, decoded under the rules.
+"""Systems-tract sequence model: learned transitions and tract thicknesses, decoded under the
+rule table with an explicit-duration (semi-Markov) model.
 
-Every sequence handled here is in UP-SECTION order (index 0 = deepest sample). The model is
-the chain-expanded hidden Markov model of :mod:`facies_ml.sequence.decode`: a tract entered
-from another tract must last at least its minimum thickness (``rules.min_samples``). Two
-runs are exempt by design: the lowest run (the log starts inside it, so it starts in the
-self-looping last sub-state) and the highest run (the log ends inside it). Every other run in
-a decoded path is at least ``min_samples`` thick and every transition is allowed by the rules.
+Wells arrive TOP-DOWN (depth increasing, as logged); this module reverses them so that every
+recursion runs UP-SECTION (index 0 = deepest sample) and returns top-down arrays again.
+
+Evidence to emission: the tract evidence model gives per-sample tract posteriors ``p(k | x)``;
+divided by the training share of each tract they are scaled likelihoods (Bourlard & Morgan
+1994, "Connectionist speech recognition"), raised to ``evidence_weight`` (< 1: the samples along
+a hole are strongly correlated, so multiplying them as if independent would make every
+posterior far too sharp; the weight is calibrated on held-out wells, see
+:meth:`TractSequenceModel.calibrate_weight`).
 """
 
 from __future__ import annotations
@@ -15,136 +19,251 @@ from dataclasses import dataclass
 import numpy as np
 
 from facies_ml.errors import InputError
-from facies_ml.sequence.decode import (
-    ExpandedModel,
-    expand_durations,
-    forward_backward_durations,
-    viterbi_durations,
-)
+from facies_ml.sequence.durations import DurationModel, fit_durations
 from facies_ml.sequence.rules import TractRules
+from facies_ml.sequence.runs import split_runs
+from facies_ml.sequence.semimarkov import (
+    SemiMarkovTables,
+    forward_backward_semimarkov,
+    viterbi_semimarkov,
+)
+from facies_ml.sequence.surfaces import Surface, SurfaceChecks, pick_surfaces
+
+
+@dataclass(frozen=True, eq=False)
+class SequenceParameters:
+    """Everything the decoder needs, checked once. Probabilities, not logs.
+
+    ``start (n,)``: tract the log starts in (at its base); ``switch (n, n)``: next tract up-section
+    given a change, zero where the rules forbid it; ``durations``: one thickness model per
+    tract (samples of ``step`` ``depth_unit``); ``tract_prior (n,)``: training share of each
+    tract; ``evidence_weight``: exponent on the scaled likelihoods.
+    """
+
+    states: tuple[str, ...]
+    start: np.ndarray
+    switch: np.ndarray
+    durations: tuple[DurationModel, ...]
+    tract_prior: np.ndarray
+    evidence_weight: float
+    step: float
+    depth_unit: str
+
+    def __post_init__(self) -> None:
+        n = len(self.states)
+        if np.asarray(self.start).shape != (n,) or np.asarray(self.switch).shape != (n, n):
+            raise InputError("sequence parameters: start must be (n,) and switch (n, n)")
+        if len(self.durations) != n or np.asarray(self.tract_prior).shape != (n,):
+            raise InputError("sequence parameters need one duration model and prior per tract")
+        for name in ("start", "switch", "tract_prior"):
+            a = np.asarray(getattr(self, name), dtype=float)
+            if not np.isfinite(a).all() or (a < 0).any():
+                raise InputError(f"sequence parameters: {name} must be finite and >= 0")
+        if np.diag(self.switch).any():
+            raise InputError("sequence parameters: switch must be zero on the diagonal")
+        if not (np.isfinite(self.evidence_weight) and self.evidence_weight > 0):
+            raise InputError(f"sequence.evidence_weight must be > 0, not {self.evidence_weight}")
+        if not self.step > 0:
+            raise InputError(f"sequence parameters: step must be > 0, not {self.step}")
+
+    def tables(self, n_samples: int) -> SemiMarkovTables:
+        """Semi-Markov log tables for a log of ``n_samples`` samples."""
+        D_full = max(max(d.support() for d in self.durations), 2)
+        parts = [d.tables(D_full) for d in self.durations]
+        D = max(1, min(D_full, int(n_samples)))
+        stack = [np.vstack([p[k][:D] for p in parts]) for k in range(4)]
+        with np.errstate(divide="ignore"):
+            ls = np.log(self.start)
+            sw = np.log(self.switch)
+        return SemiMarkovTables(ls, sw, *stack)
 
 
 @dataclass(frozen=True, eq=False)
 class DecodeResult:
-    """Decoded tracts in UP-SECTION order: ``path`` (T,) tract indices (order of
-    ``rules.states``), ``posterior`` (T, n_tracts) summed over sub-states, ``log_prob`` of the
-    Viterbi path (scaled-likelihood units)."""
+    """A decoded well in the order of the input arrays: ``path (T,)`` tract indices (order of
+    ``rules.states``), ``posterior (T, n)``, ``entry (T, n, n)`` run-entry posterior
+    (UP-SECTION order only, see :mod:`facies_ml.sequence.semimarkov`), ``log_prob`` of the
+    Viterbi path and ``log_likelihood`` of all paths (emission units)."""
 
     path: np.ndarray
     posterior: np.ndarray
+    entry: np.ndarray | None
     log_prob: float
+    log_likelihood: float
 
 
-def _labelled_pieces(seq: np.ndarray) -> list[tuple[int, np.ndarray]]:
-    """Split at -1 entries: (offset, piece) for each contiguous labelled stretch."""
-    labelled = seq >= 0
-    edges = np.flatnonzero(np.diff(np.r_[0, labelled.astype(int), 0]))
-    return [(int(s), seq[s:e]) for s, e in zip(edges[::2], edges[1::2], strict=True)]
+@dataclass(frozen=True, eq=False)
+class WellSequence:
+    """A well's decoded tracts TOP-DOWN (``path``, ``posterior``) and its surfaces (deepest
+    first), with the rule violations of the raw per-sample argmax for comparison."""
+
+    path: np.ndarray
+    posterior: np.ndarray
+    surfaces: list[Surface]
+    violations_raw: int
+    violations: int
 
 
 class TractSequenceModel:
-    """Learn start/transition/thickness statistics from labelled up-section tract sequences.
+    """Learn start/transition/thickness statistics from labelled wells and decode new ones.
 
-    ``prior_count``: pseudo-count added to every allowed transition and start (forbidden ones
-    stay exactly 0) and the weight of the thickness prior (``prior_count`` pseudo-runs of
-    ``min_samples`` extra samples). ``emission_weight``: exponent on the scaled likelihoods.
+    Parameters (stored as given, checked in :meth:`fit`): ``rules`` (the rule table, the one
+    source of allowed transitions and minimum thicknesses), ``duration_model`` ('explicit' or
+    'minimum_geometric'), ``prior_count`` (pseudo-count on every allowed transition and start),
+    ``duration_prior_runs`` / ``duration_prior_log_sigma`` / ``duration_log_sigma_floor`` (the
+    thickness prior, see :func:`facies_ml.sequence.durations.fit_durations`),
+    ``evidence_weight`` (exponent on the scaled likelihoods until :meth:`calibrate_weight`).
     """
 
-    def __init__(self, rules: TractRules, prior_count: float = 1.0,
-                 emission_weight: float = 1.0) -> None:
+    def __init__(self, rules: TractRules, duration_model: str, prior_count: float,
+                 duration_prior_runs: float, duration_prior_log_sigma: float,
+                 duration_log_sigma_floor: float, evidence_weight: float) -> None:
         self.rules = rules
+        self.duration_model = duration_model
         self.prior_count = prior_count
-        self.emission_weight = emission_weight
+        self.duration_prior_runs = duration_prior_runs
+        self.duration_prior_log_sigma = duration_prior_log_sigma
+        self.duration_log_sigma_floor = duration_log_sigma_floor
+        self.evidence_weight = evidence_weight
 
     # ------------------------------------------------------------------ training
-    def fit(self, sequences: list[np.ndarray], step: float, depth_unit: str) -> TractSequenceModel:
-        """Fit from int tract sequences (UP-SECTION, -1 = unlabelled) sampled every ``step``."""
+    def fit(self, labels_topdown: list[np.ndarray], step: float,
+            depth_unit: str) -> TractSequenceModel:
+        """Fit from per-well tract index arrays (TOP-DOWN, -1 = unlabelled) sampled every
+        ``step`` ``depth_unit``; each is read up-section here."""
         rules = self.rules
         n = rules.n_states
-        if not (np.isfinite(self.prior_count) and self.prior_count > 0):
-            raise InputError(f"prior_count must be > 0, not {self.prior_count!r}")
+        for name in ("prior_count", "duration_prior_runs", "duration_prior_log_sigma",
+                     "duration_log_sigma_floor", "evidence_weight"):
+            v = float(getattr(self, name))
+            if not (np.isfinite(v) and v > 0):
+                raise InputError(f"sequence.{name} must be > 0, not {getattr(self, name)!r}")
         ms = rules.min_samples(step, depth_unit)
         m = np.array([ms[s] for s in rules.states], dtype=int)
-        off = rules.allowed & ~np.eye(n, dtype=bool)
         start_c = np.zeros(n)
         trans_c = np.zeros((n, n))
-        excess: list[list[int]] = [[] for _ in range(n)]
-        excess_cut: list[list[int]] = [[] for _ in range(n)]
-        for q, raw in enumerate(sequences):
-            seq = np.asarray(raw)
+        share = np.zeros(n)
+        complete: list[list[int]] = [[] for _ in range(n)]
+        cut: list[list[int]] = [[] for _ in range(n)]
+        for q, raw in enumerate(labels_topdown):
+            seq = np.asarray(raw)[::-1]
             if seq.ndim != 1 or (seq.size and not np.issubdtype(seq.dtype, np.integer)):
                 raise InputError(f"training sequence #{q}: expected a 1-D integer array")
             bad = np.flatnonzero((seq < -1) | (seq >= n))
             if bad.size:
                 raise InputError(f"training sequence #{q}: tract index {int(seq[bad[0]])} "
                                  f"is outside -1..{n - 1}", row=int(bad[0]))
-            for offset, piece in _labelled_pieces(seq):
+            share += np.bincount(seq[seq >= 0], minlength=n)
+            starts, lengths, values = split_runs(seq >= 0)
+            for s0, ln, ok in zip(starts, lengths, values, strict=True):
+                if not ok:
+                    continue
+                piece = seq[s0:s0 + ln]
                 a, b = piece[:-1], piece[1:]
                 wrong = np.flatnonzero(~rules.allowed[a, b])
                 if wrong.size:
                     j = int(wrong[0])
                     raise InputError(
                         f"training sequence #{q}: forbidden up-section transition "
-                        f"{rules.states[a[j]]} -> {rules.states[b[j]]} between index "
-                        f"{offset + j} and {offset + j + 1}", row=offset + j + 1)
-                change = np.flatnonzero(a != b)
-                start_c[piece[0]] += 1
-                np.add.at(trans_c, (a[change], b[change]), 1)
-                starts = np.r_[0, change + 1]
-                lengths = np.diff(np.r_[starts, piece.size])
-                for r, (s0, ln) in enumerate(zip(starts, lengths, strict=True)):
-                    k = int(piece[s0])
-                    cut = r == 0 or r == len(starts) - 1          # touches the piece ends
-                    (excess_cut if cut else excess)[k].append(max(int(ln) - int(m[k]), 0))
+                        f"{rules.states[a[j]]} -> {rules.states[b[j]]} (up-section index "
+                        f"{s0 + j})", row=int(s0 + j + 1))
+                rs, rl, rv = split_runs(piece)
+                start_c[rv[0]] += 1
+                np.add.at(trans_c, (rv[:-1], rv[1:]), 1)
+                for r, (ln_r, k) in enumerate(zip(rl, rv, strict=True)):
+                    (cut if r == 0 or r == len(rv) - 1 else complete)[int(k)].append(int(ln_r))
         pc = float(self.prior_count)
-        start = start_c + pc
-        self.startprob_ = start / start.sum()
+        off = rules.allowed & ~np.eye(n, dtype=bool)
         counts = np.where(off, trans_c + pc, 0.0)
-        switch = counts / counts.sum(axis=1, keepdims=True)
-        mean_excess = np.empty(n)
-        for k in range(n):
-            runs = excess[k] if excess[k] else excess_cut[k]     # prefer complete runs
-            mean_excess[k] = (sum(runs) + pc * m[k]) / (len(runs) + pc)
-        p_stay = mean_excess / (1.0 + mean_excess)                # geometric tail mean
-        self.min_samples_ = m
-        self.mean_thickness_samples_ = mean_excess
-        self.stay_prob_ = p_stay
-        self.switch_prob_ = switch
-        self.transition_counts_ = trans_c
-        self.transmat_ = switch * (1.0 - p_stay)[:, None] + np.diag(p_stay)
-        self.step_ = float(step)
-        self.depth_unit_ = depth_unit
+        durations = fit_durations(str(self.duration_model), complete, cut, m,
+                                  float(self.duration_prior_runs),
+                                  float(self.duration_prior_log_sigma),
+                                  float(self.duration_log_sigma_floor))
+        self.params_ = SequenceParameters(
+            states=tuple(rules.states), start=(start_c + pc) / (start_c + pc).sum(),
+            switch=counts / counts.sum(axis=1, keepdims=True), durations=tuple(durations),
+            tract_prior=(share + 1.0) / (share + 1.0).sum(),
+            evidence_weight=float(self.evidence_weight), step=float(step),
+            depth_unit=str(depth_unit))
         return self
 
-    # ------------------------------------------------------------------ decoding
-    def _check_fitted(self) -> None:
-        if not hasattr(self, "transmat_"):
+    def _check_fitted(self) -> SequenceParameters:
+        if not hasattr(self, "params_"):
             raise InputError("the sequence model is not fitted; call fit() first")
+        return self.params_
 
-    def _log_params(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        with np.errstate(divide="ignore"):
-            ls = np.log(self.startprob_)
-            stay = np.log(self.stay_prob_)
-            sw = np.log(self.switch_prob_ * (1.0 - self.stay_prob_)[:, None])
-        np.fill_diagonal(sw, -np.inf)
-        return ls, stay, sw
+    # ------------------------------------------------------------------ evidence
+    def emission(self, tract_posterior: np.ndarray, weight: float | None = None) -> np.ndarray:
+        """Scaled log-likelihoods ``weight * (log p(k|x) - log prior_k)``, shape (T, n)."""
+        p = self._check_fitted()
+        post = np.asarray(tract_posterior, dtype=float)
+        if post.ndim != 2 or post.shape[1] != len(p.states):
+            raise InputError(f"tract posteriors must have shape (T, {len(p.states)}) for tracts "
+                             f"{', '.join(p.states)}; got {post.shape}")
+        w = p.evidence_weight if weight is None else float(weight)
+        return w * (np.log(np.clip(post, 1e-9, 1.0)) - np.log(p.tract_prior)[None, :])
 
-    def expanded(self) -> ExpandedModel:
-        """The explicit expanded model (sub-states) this model decodes with."""
-        self._check_fitted()
-        ls, stay, sw = self._log_params()
-        return expand_durations(ls, stay, sw, self.min_samples_)
-
-    def decode(self, log_likelihood: np.ndarray) -> DecodeResult:
-        """Decode (T, n_tracts) scaled log-likelihoods given in UP-SECTION order."""
-        self._check_fitted()
-        ll = np.asarray(log_likelihood, dtype=float)
-        n = self.rules.n_states
-        if ll.ndim != 2 or ll.shape[1] != n:
+    # ------------------------------------------------------------------ decoding
+    def decode(self, log_emit_upsection: np.ndarray, posteriors: bool = True) -> DecodeResult:
+        """Decode (T, n) emission log-likelihoods given UP-SECTION; result up-section."""
+        p = self._check_fitted()
+        e = np.asarray(log_emit_upsection, dtype=float)
+        n = len(p.states)
+        if e.ndim != 2 or e.shape[1] != n:
             raise InputError(f"log-likelihoods must have shape (T, {n}) for tracts "
-                             f"{', '.join(self.rules.states)}; got {ll.shape}")
-        e = self.emission_weight * ll
-        ls, stay, sw = self._log_params()
-        path, log_prob = viterbi_durations(ls, stay, sw, self.min_samples_, e)
-        post, _ = forward_backward_durations(ls, stay, sw, self.min_samples_, e)
-        return DecodeResult(path=path, posterior=post, log_prob=log_prob)
+                             f"{', '.join(p.states)}; got {e.shape}")
+        tables = p.tables(e.shape[0])
+        path, log_prob = viterbi_semimarkov(tables, e)
+        if not posteriors:
+            return DecodeResult(path, np.eye(n)[path], None, log_prob, float("nan"))
+        fb = forward_backward_semimarkov(tables, e)
+        return DecodeResult(path, fb.occupancy, fb.entry, log_prob, fb.log_likelihood)
+
+    def decode_well(self, tract_posterior_topdown: np.ndarray, depth_topdown: np.ndarray,
+                    gr_topdown: np.ndarray | None, checks: SurfaceChecks | None
+                    ) -> WellSequence:
+        """Decode one well given TOP-DOWN tract posteriors and depths; pick its surfaces."""
+        post = np.asarray(tract_posterior_topdown, dtype=float)
+        up = slice(None, None, -1)
+        res = self.decode(self.emission(post)[up])
+        gr = None if gr_topdown is None else np.asarray(gr_topdown, dtype=float)[up]
+        surfaces = pick_surfaces(np.asarray(depth_topdown, dtype=float)[up], res.path,
+                                 self.rules, entry=res.entry, gr=gr, checks=checks)
+        raw = post.argmax(axis=1)
+        return WellSequence(path=res.path[up], posterior=res.posterior[up], surfaces=surfaces,
+                            violations_raw=int(self.rules.count_violations(raw[up])),
+                            violations=int(self.rules.count_violations(res.path)))
+
+    # ------------------------------------------------------------------ calibration
+    def calibrate_weight(self, posteriors_topdown: list[np.ndarray],
+                         labels_topdown: list[np.ndarray], grid: list[float]
+                         ) -> list[dict[str, float]]:
+        """Choose ``evidence_weight`` from ``grid`` by the mean log posterior probability of the
+        true tract (a proper score, Gneiting & Raftery 2007) on held-out tract posteriors
+        (wells the evidence model did not see); sets ``params_.evidence_weight`` and returns
+        the score per weight."""
+        p = self._check_fitted()
+        if not grid:
+            raise InputError("sequence.evidence_weight_grid is empty")
+        rows = []
+        for w in grid:
+            tot, count = 0.0, 0
+            for post, lab in zip(posteriors_topdown, labels_topdown, strict=True):
+                lab = np.asarray(lab)
+                ok = lab >= 0
+                if ok.sum() < 2:
+                    continue
+                e = self.emission(np.asarray(post)[ok], weight=w)[::-1]
+                occ = self.decode(e).posterior[::-1]
+                tot += float(np.log(np.clip(occ[np.arange(ok.sum()), lab[ok]], 1e-6, 1.0)).sum())
+                count += int(ok.sum())
+            rows.append({"evidence_weight": float(w),
+                         "mean_log_score": tot / count if count else float("nan")})
+        scored = [r for r in rows if np.isfinite(r["mean_log_score"])]
+        if scored:
+            best = max(scored, key=lambda r: r["mean_log_score"])["evidence_weight"]
+            self.params_ = SequenceParameters(
+                states=p.states, start=p.start, switch=p.switch, durations=p.durations,
+                tract_prior=p.tract_prior, evidence_weight=best, step=p.step,
+                depth_unit=p.depth_unit)
+        return rows

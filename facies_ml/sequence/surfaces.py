@@ -4,25 +4,50 @@ Inputs run UP-SECTION: index 0 is the deepest sample and depth decreases along t
 A surface sits between the last sample of one run and the first sample of the next; which
 transitions are SBs and which is the MFS turnaround comes from the rule table.
 
-Uncertainty. For a surface between tract ``a`` (below) and tract ``c`` (above), take the
-samples from the middle of the run below to the middle of the run above. At each sample the
-probability of lying above the surface is ``q = P(c) / (P(a) + P(c))`` from the posterior;
-``q`` is made non-decreasing up-section by isotonic regression (pool-adjacent-violators) and
-read as ``F(d) = P(surface is deeper than d)``. ``depth_p10`` / ``depth_p90`` are the 10th and
-90th percentiles of the surface depth (``F = 0.9`` and ``F = 0.1``, linear interpolation between
-samples, clamped to the window and widened to contain the decoded boundary), so
-``depth_p10 <= depth <= depth_p90``. ``confidence`` is the mean posterior of the decoded tract
-over the same window (``P(a)`` below, ``P(c)`` above).
+Uncertainty comes from the semi-Markov forward-backward ``entry`` posterior: ``entry[t, i, j]``
+is the probability that a run of tract j starts at sample t on top of a run of tract i. For a
+picked surface of kind K between the middle of the run below and the middle of the run above,
+the probability mass of every K transition at each candidate boundary is a distribution of the
+surface depth: ``depth_p10`` / ``depth_p90`` are its 10th / 90th depth percentiles (shallower /
+deeper, widened to hold the decoded boundary) and ``confidence`` is its total mass, the
+probability that a surface of that kind lies in the window at all.
+
+Checks (common practice): an MFS lies at the highest GR of its own sequence (between the
+bounding SBs), and at an SB the GR stacking turns from decreasing upward (highstand,
+shallowing) to increasing upward or flat (lowstand / transgressive). GR is smoothed over
+``gr_smoothing`` depth units first so thin hot beds do not pass for the flooding surface. A pick
+that fails a check or whose confidence is below ``low_confidence`` is flagged, and a failed
+pick's confidence is capped at ``failed_check_confidence``.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from facies_ml.errors import InputError
 from facies_ml.sequence.rules import TractRules
+from facies_ml.sequence.runs import split_runs
+
+
+@dataclass(frozen=True)
+class SurfaceChecks:
+    """Settings of the pick checks (depth units of the well; from ``sequence:`` in the config)."""
+
+    mfs_gr_window: float             # MFS must lie within this of the sequence's GR maximum
+    gr_smoothing: float              # GR moving-average window before the checks
+    sb_trend_window: float           # GR trend windows below / above an SB
+    low_confidence: float            # picks below this confidence are flagged
+    failed_check_confidence: float   # a pick failing a check never reports more
+
+    def __post_init__(self) -> None:
+        for name in ("mfs_gr_window", "gr_smoothing", "sb_trend_window"):
+            if not float(getattr(self, name)) > 0:
+                raise InputError(f"sequence.checks.{name} must be > 0")
+        for name in ("low_confidence", "failed_check_confidence"):
+            if not 0.0 <= float(getattr(self, name)) <= 1.0:
+                raise InputError(f"sequence.checks.{name} must lie in 0..1")
 
 
 @dataclass(frozen=True)
@@ -33,49 +58,51 @@ class Surface:
     depth: float               # the boundary: midway between the two samples it separates
     depth_p10: float           # shallower percentile of the surface depth
     depth_p90: float           # deeper percentile of the surface depth
-    confidence: float          # 0..1
-    gr_check: bool | None      # MFS within mfs_gr_window of its sequence's GR maximum
+    confidence: float          # 0..1: probability that such a surface lies in its window
+    gr_check: bool | None      # MFS: at the sequence's GR maximum; SB: stacking turns upward
     note: str
     index: int = -1            # first sample above the surface (up-section array index)
     lower: str = ""            # tract below
     upper: str = ""            # tract above
+    sequence: str = ""         # basin-wide sequence name (filled by the correlation step)
+    flags: tuple[str, ...] = field(default_factory=tuple)
 
 
-def _isotonic(y: np.ndarray) -> np.ndarray:
-    """Least-squares non-decreasing fit (pool adjacent violators)."""
-    vals: list[float] = []
-    counts: list[int] = []
-    for v in y.tolist():
-        vals.append(v)
-        counts.append(1)
-        while len(vals) > 1 and vals[-2] > vals[-1]:
-            c = counts[-2] + counts[-1]
-            vals[-2] = (vals[-2] * counts[-2] + vals[-1] * counts[-1]) / c
-            counts[-2] = c
-            vals.pop()
-            counts.pop()
-    return np.repeat(vals, counts)
+def _smooth(gr: np.ndarray, n: int) -> np.ndarray:
+    """NaN-aware centred moving average over ``n`` samples."""
+    if n <= 1:
+        return gr.copy()
+    ok = np.isfinite(gr)
+    k = np.ones(n)
+    num = np.convolve(np.where(ok, gr, 0.0), k, mode="same")
+    den = np.convolve(ok.astype(float), k, mode="same")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(den > 0, num / den, np.nan)
 
 
-def _crossing(F: np.ndarray, d: np.ndarray, level: float) -> float:
-    """Depth where the non-decreasing F first reaches ``level`` (clamped to the window)."""
-    above = np.flatnonzero(F >= level)
-    if above.size == 0:
-        return float(d[-1])
-    j = int(above[0])
-    if j == 0:
-        return float(d[0])
-    f0, f1 = F[j - 1], F[j]
-    w = (level - f0) / (f1 - f0) if f1 > f0 else 1.0
-    return float(d[j - 1] + w * (d[j] - d[j - 1]))
+def _slope(y: np.ndarray, x: np.ndarray) -> float:
+    ok = np.isfinite(y)
+    if ok.sum() < 3:
+        return float("nan")
+    return float(np.polyfit(x[ok], y[ok], 1)[0])
 
 
-def _check(depth: np.ndarray, path: np.ndarray, posterior: np.ndarray, n: int,
-           gr: np.ndarray | None) -> None:
+def _weighted_quantile(z: np.ndarray, w: np.ndarray, q: float) -> float:
+    order = np.argsort(z)
+    z, w = z[order], w[order]
+    c = np.cumsum(w)
+    c = c / c[-1]
+    return float(np.interp(q, c, z))
+
+
+def _check(depth: np.ndarray, path: np.ndarray, n: int, gr: np.ndarray | None,
+           entry: np.ndarray | None) -> None:
     T = depth.shape[0]
-    if depth.ndim != 1 or path.shape != (T,) or posterior.shape != (T, n):
-        raise InputError(f"depth {depth.shape}, path {path.shape} and posterior "
-                         f"{posterior.shape} must describe the same {T} samples and {n} tracts")
+    if depth.ndim != 1 or path.shape != (T,):
+        raise InputError(f"depth {depth.shape} and path {path.shape} must describe the same "
+                         f"{T} samples")
+    if entry is not None and entry.shape != (T, n, n):
+        raise InputError(f"entry posterior has shape {entry.shape}, expected {(T, n, n)}")
     if gr is not None and gr.shape != (T,):
         raise InputError(f"GR has {gr.shape[0] if gr.ndim else 0} samples, expected {T}",
                          curve="gr_api")
@@ -91,60 +118,91 @@ def _check(depth: np.ndarray, path: np.ndarray, posterior: np.ndarray, n: int,
         raise InputError(f"tract index {int(path[r])} is outside 0..{n - 1}", row=r)
 
 
-def pick_surfaces(depth: np.ndarray, path: np.ndarray, posterior: np.ndarray, rules: TractRules,
-                  gr: np.ndarray | None = None, mfs_gr_window: float = 20.0) -> list[Surface]:
+def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
+                  entry: np.ndarray | None = None, gr: np.ndarray | None = None,
+                  checks: SurfaceChecks | None = None) -> list[Surface]:
     """Surfaces of an up-section decoded path, deepest first (see module docstring).
 
-    SB: every transition the rules mark SB (base of an LST, or a TST resting on an HST).
-    MFS: every transition marked MFS (TST -> EHST). ``gr`` (API, same samples) enables the
-    common-practice check that the MFS lies within ``mfs_gr_window`` (depth unit) of the highest
-    GR between the bounding SBs (or the ends of the interval).
+    ``entry (T, n, n)``: run-entry posterior of the same samples (None: the path is taken as
+    certain, e.g. interpreted core labels: ranges collapse to the pick, confidence 1).
+    ``gr`` (API, same samples) with ``checks`` enables the checks and flags.
     """
     depth = np.asarray(depth, dtype=float)
     path = np.asarray(path)
-    posterior = np.asarray(posterior, dtype=float)
     grv = None if gr is None else np.asarray(gr, dtype=float)
     n = rules.n_states
-    _check(depth, path, posterior, n, grv)
+    ent = None if entry is None else np.asarray(entry, dtype=float)
+    _check(depth, path, n, grv, ent)
     if path.size < 2:
         return []
-    change = np.flatnonzero(np.diff(path)) + 1
-    starts = np.r_[0, change]
-    lengths = np.diff(np.r_[starts, path.size])
-    picks: list[tuple[int, int, str]] = []                 # (run index above, boundary, kind)
-    for r in range(1, starts.size):
-        kind = rules.surface_kind(int(path[starts[r - 1]]), int(path[starts[r]]))
-        if kind is not None:
-            picks.append((r, int(starts[r]), kind))
+    starts, lengths, tracts = split_runs(path)
+    kind_of = np.full((n, n), "", dtype=object)
+    for i in range(n):
+        for j in range(n):
+            kind_of[i, j] = rules.surface_kind(i, j) or ""
+    picks = [(r, int(starts[r]), str(kind_of[tracts[r - 1], tracts[r]]))
+             for r in range(1, starts.size) if kind_of[tracts[r - 1], tracts[r]]]
     sb_idx = [b for _, b, k in picks if k == "SB"]
+    step = float(abs(np.median(np.diff(depth)))) if depth.size > 1 else 1.0
+    smooth = None
+    chk = checks
+    if grv is not None and chk is not None:
+        smooth = _smooth(grv, max(1, int(round(chk.gr_smoothing / step))))
     out = []
     for r, b, kind in picks:
-        lo_t, hi_t = int(path[b - 1]), int(path[b])
-        lo = int(starts[r - 1] + lengths[r - 1] // 2)
-        hi = int(starts[r] + (lengths[r] - 1) // 2)
-        w = np.arange(lo, hi + 1)
-        pa, pc = posterior[w, lo_t], posterior[w, hi_t]
-        tot = pa + pc
-        q = np.where(tot > 0, pc / np.where(tot > 0, tot, 1.0), 0.5)
-        F = _isotonic(q)
-        d = depth[w]
+        lo_t, hi_t = int(tracts[r - 1]), int(tracts[r])
         z = 0.5 * (depth[b - 1] + depth[b])
-        p10 = min(_crossing(F, d, 0.9), z)
-        p90 = max(_crossing(F, d, 0.1), z)
-        conf = float(np.mean(np.where(w < b, pa, pc)))
-        gr_check: bool | None = None
         note = f"{rules.states[lo_t]} -> {rules.states[hi_t]} up-section"
-        if kind == "MFS" and grv is not None:
-            below = max([s for s in sb_idx if s <= b], default=0)
-            above = min([s for s in sb_idx if s > b], default=path.size)
-            seg = grv[below:above]
-            if np.isfinite(seg).any():
-                j = below + int(np.nanargmax(seg))
-                gr_check = bool(abs(z - depth[j]) <= mfs_gr_window * (1 + 1e-9))
-                note += f"; sequence GR maximum {abs(j - b)} samples from the surface"
+        flags: list[str] = []
+        if ent is None:
+            p10 = p90 = z
+            conf = 1.0
+        else:
+            lo = int(starts[r - 1] + lengths[r - 1] // 2) + 1
+            hi = int(starts[r] + (lengths[r] - 1) // 2)
+            w = np.arange(max(lo, 1), hi + 1)
+            mass = ent[w][:, kind_of == kind].sum(axis=1)
+            conf = float(min(mass.sum(), 1.0))
+            zs = 0.5 * (depth[w - 1] + depth[w])
+            if mass.sum() > 0:
+                p10 = min(_weighted_quantile(zs, mass, 0.1), z)
+                p90 = max(_weighted_quantile(zs, mass, 0.9), z)
             else:
-                note += "; no GR in this sequence"
+                p10 = p90 = z
+        gr_check: bool | None = None
+        if smooth is not None and chk is not None:
+            if kind == "MFS":
+                below = max([s for s in sb_idx if s <= b], default=0)
+                above = min([s for s in sb_idx if s > b], default=path.size)
+                seg = smooth[below:above]
+                if np.isfinite(seg).any():
+                    j = below + int(np.nanargmax(seg))
+                    gr_check = bool(abs(z - depth[j]) <= chk.mfs_gr_window * (1 + 1e-9))
+                    note += (f"; sequence GR maximum {abs(z - depth[j]):.1f} from the surface "
+                             f"({seg[j - below]:.0f} API smoothed)")
+                    if not gr_check:
+                        flags.append("MFS not at its sequence's highest GR")
+                else:
+                    note += "; no GR in this sequence"
+            else:
+                nwin = max(3, int(round(chk.sb_trend_window / step)))
+                lo_w = np.arange(max(b - nwin, 0), b)
+                hi_w = np.arange(b, min(b + nwin, path.size))
+                # slopes against height (up-section), so positive = GR increasing upward
+                s_below = _slope(smooth[lo_w], -depth[lo_w])
+                s_above = _slope(smooth[hi_w], -depth[hi_w])
+                if np.isfinite(s_below) and np.isfinite(s_above):
+                    gr_check = bool(s_above >= s_below)
+                    note += (f"; GR trend upward {s_below:+.2f} below, {s_above:+.2f} above "
+                             "(API per depth unit)")
+                    if not gr_check:
+                        flags.append("no upward turn of the GR stacking at this SB")
+        if chk is not None and gr_check is False:
+            conf = min(conf, chk.failed_check_confidence)
+        if chk is not None and conf < chk.low_confidence:
+            flags.append(f"low confidence {conf:.2f}")
         out.append(Surface(kind=kind, depth=float(z), depth_p10=float(p10), depth_p90=float(p90),
-                           confidence=conf, gr_check=gr_check, note=note, index=b,
-                           lower=rules.states[lo_t], upper=rules.states[hi_t]))
+                           confidence=float(conf), gr_check=gr_check, note=note, index=b,
+                           lower=rules.states[lo_t], upper=rules.states[hi_t],
+                           flags=tuple(flags)))
     return out
