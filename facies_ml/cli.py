@@ -40,6 +40,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True)
     p.add_argument("--wells", type=int, default=10)
     p.add_argument("--seed", type=int, default=20261202)
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--preset", choices=["demo", "hard"], default="demo",
+                   help="bundled forward-model settings: demo (configs/synthetic_basin.yaml) or "
+                        "hard (configs/synthetic_hard.yaml); default demo")
+    g.add_argument("--config", help="any synth settings YAML (instead of --preset)")
 
     p = sub.add_parser("train", help="fit on cored key wells and save a model version")
     p.add_argument("--wells", required=True, help="folder of LAS/CSV/Parquet files, or one file")
@@ -101,13 +106,14 @@ def run(args: argparse.Namespace) -> int:
     from facies_ml import api
 
     if args.command == "synth":
-        from facies_ml.synthetic import generate_basin
+        from facies_ml.synthetic import PRESETS, generate_basin
 
         if args.wells < 2:
             raise InputError("--wells must be at least 2")
+        settings = args.config or PRESETS[args.preset]
         generate_basin(args.out, n_wells=args.wells, n_cored=min(5, max(1, args.wells // 2)),
-                       seed=args.seed)
-        print(f"wrote a synthetic basin of {args.wells} wells to {args.out}")
+                       seed=args.seed, config_path=settings)
+        print(f"wrote a synthetic basin of {args.wells} wells to {args.out} (settings {settings})")
     elif args.command == "evaluate":
         from facies_ml.evaluation import format_table
 

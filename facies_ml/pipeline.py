@@ -173,10 +173,14 @@ class FaciesPipeline:
         cfg = self.config
         seq = cfg.section("sequence")
         labels = cfg.facies.labels
-        windows = [float(w) for w in seq["facies_windows"]]
+        self.evidence_settings_ = {
+            "windows": [float(w) for w in seq["facies_windows"]],
+            "curves": [str(c) for c in seq["stacking_curves"]],
+            "curve_windows": [float(w) for w in seq["stacking_windows"]]}
         step = cfg.step
         facies_oof = self._facies_oof(frames, y_facies, keep, params)
-        evid = [tract_evidence_matrix(X.reindex(columns=keep), p, labels, step, windows)
+        evid = [tract_evidence_matrix(X.reindex(columns=keep), p, labels, step,
+                                      **self.evidence_settings_)
                 for X, p in zip(frames, facies_oof, strict=True)]
         y_states = [self.tract_states(y) for y in y_tract]
         E_all = pd.concat(evid, ignore_index=True)
@@ -185,7 +189,6 @@ class FaciesPipeline:
         has_t = yt >= 0
         n_tracts = len(self.tract_names_)
         tract_params = dict(params, class_weight=None)
-        self.evidence_windows_ = windows
         self.tract_model_ = LithofaciesClassifier(**tract_params).fit(
             E_all[has_t], yt[has_t], groups=g[has_t], n_classes=n_tracts)
         self.tract_subset_models_ = SubsetModels(
@@ -297,7 +300,7 @@ class FaciesPipeline:
         viol_raw = viol = 0
         if self.tract_model_ is not None and self.sequence_model_ is not None:
             E = tract_evidence_matrix(X.reindex(columns=self.feature_names_), proba,
-                                      labels, well.step, self.evidence_windows_)
+                                      labels, well.step, **self.evidence_settings_)
             tract_model = self.tract_model_
             present = set(E.columns[E.notna().any().to_numpy()])
             if any(f not in present for f in tract_model.feature_names_in_):

@@ -25,7 +25,7 @@ from scipy.ndimage import uniform_filter1d
 
 from facies_ml.config import load_facies_scheme
 from facies_ml.errors import InputError
-from facies_ml.synthetic import DEFAULT_SEED, DEFAULT_SYNTH_CONFIG, generate_basin
+from facies_ml.synthetic import DEFAULT_SEED, DEFAULT_SYNTH_CONFIG, PRESETS, generate_basin
 from facies_ml.synthetic.petrophysics import (
     bulk_density,
     gamma_ray_api,
@@ -317,7 +317,8 @@ def test_core_intervals_and_shift(basin: dict, truth: dict, las_files: dict) -> 
     recovers the recorded shift by cross-correlation with the logged GR."""
     core = pd.read_csv(BUNDLED / "core_intervals.csv")
     gamma = pd.read_csv(BUNDLED / "core_gamma.csv")
-    assert list(core.columns) == ["well", "top", "base", "lithofacies", "systems_tract"]
+    assert list(core.columns) == ["well", "top", "base", "lithofacies", "systems_tract",
+                                  "sequence"]
     assert list(gamma.columns) == ["well", "depth", "core_gr_api"]
     wells = {w["name"]: w for w in basin["wells"]}
     cored = sorted(n for n, w in wells.items() if w["role"] == "cored")
@@ -336,6 +337,7 @@ def test_core_intervals_and_shift(basin: dict, truth: dict, las_files: dict) -> 
         i = np.clip(np.searchsorted(t["depth"].to_numpy(), mid), 0, len(t) - 1)
         assert (t["lithofacies"].to_numpy()[i] == c["lithofacies"].to_numpy()).mean() > 0.97
         assert (t["systems_tract"].to_numpy()[i] == c["systems_tract"].to_numpy()).mean() > 0.97
+        assert (c["sequence"].to_numpy() == "S" + t["sequence"].astype(str).to_numpy()[i]).all()
         # cross-correlation over candidate shifts (sample steps)
         g = gamma[gamma["well"] == name]
         las = las_files[name]
@@ -385,3 +387,206 @@ def test_bad_input_raises_input_error(tmp_path: Path) -> None:
     with pytest.raises(InputError, match="facies.labels") as err:
         generate_basin(tmp_path / "x", config_path=p)
     assert "bad.yaml" in str(err.value)
+
+
+# ---------------------------------------------------------------- observable truth surfaces
+
+
+def _inside_log(surf: pd.DataFrame, wells: dict[str, dict]) -> None:
+    """Every truth surface lies at least one sample step inside its well's logged interval and
+    carries the well's depth unit."""
+    assert list(surf.columns) == ["well", "surface", "depth", "sequence", "depth_unit"]
+    for _, r in surf.iterrows():
+        w = wells[r["well"]]
+        assert r["depth_unit"] == w["depth_unit"]
+        assert w["top"] + w["step"] - 1e-6 <= r["depth"] <= w["base"] - w["step"] + 1e-6, r
+
+
+def test_demo_surfaces_only_inside_the_log(basin: dict, surfaces: pd.DataFrame) -> None:
+    """The SB of sequence 1 is the base edge of every demo log, so it is not listed; every
+    other SB (2..n) and every MFS (1..n) is."""
+    wells = {w["name"]: w for w in basin["wells"]}
+    _inside_log(surfaces, wells)
+    n = basin["n_sequences"]
+    for name in wells:
+        s = surfaces[surfaces["well"] == name]
+        assert sorted(s.loc[s["surface"] == "SB", "sequence"]) == list(range(2, n + 1))
+        assert sorted(s.loc[s["surface"] == "MFS", "sequence"]) == list(range(1, n + 1))
+
+
+# ---------------------------------------------------------------- hard preset
+
+HARD_CFG = yaml.safe_load(PRESETS["hard"].read_text())
+
+
+@pytest.fixture(scope="module")
+def hard(tmp_path_factory: pytest.TempPathFactory) -> dict:
+    """A small hard-preset basin: 6 wells (3 cored), 1,600 simulated samples per well."""
+    out = tmp_path_factory.mktemp("hard")
+    generate_basin(out, n_wells=6, n_cored=3, seed=7, config_path=PRESETS["hard"],
+                   samples_per_well=1600)
+    b = json.loads((out / "basin.json").read_text())
+    return {"dir": out, "basin": b, "wells": {w["name"]: w for w in b["wells"]},
+            "truth": {w["name"]: pd.read_csv(out / "truth" / f"{w['name']}.csv")
+                      for w in b["wells"]},
+            "surfaces": pd.read_csv(out / "truth" / "surfaces.csv"),
+            "core": pd.read_csv(out / "core_intervals.csv")}
+
+
+def test_hard_preset_is_reproducible(tmp_path: Path, hard: dict) -> None:
+    generate_basin(tmp_path / "again", n_wells=6, n_cored=3, seed=7,
+                   config_path=PRESETS["hard"], samples_per_well=1600)
+    for p in sorted(hard["dir"].rglob("*")):
+        if p.is_file():
+            rel = p.relative_to(hard["dir"])
+            assert (tmp_path / "again" / rel).read_bytes() == p.read_bytes(), rel
+
+
+def test_hard_preset_sequences_and_log_windows(hard: dict) -> None:
+    """8 sequences; log windows start and stop in different sequences per well (at least one
+    log starts above sequence 1, at least one ends below sequence 8); cored wells keep at least
+    cored_min_mfs logged MFS; per-sample sequence order is still deepest = 1 at the base."""
+    b, n = hard["basin"], HARD_CFG["sea_level"]["n_sequences"]
+    assert b["n_sequences"] == n == 8 and b["preset"] == "hard"
+    seen: set[int] = set()
+    deepest, shallowest = [], []
+    for name, w in hard["wells"].items():
+        seq = hard["truth"][name]["sequence"].to_numpy()
+        assert np.all(np.diff(seq) <= 0)                 # depth down -> sequence number down
+        assert w["logged_sequences"] == sorted(set(seq.tolist()))
+        deepest.append(int(seq[-1]))
+        shallowest.append(int(seq[0]))
+        seen |= set(seq.tolist())
+        assert w["n_samples"] == len(seq)
+        if w["role"] == "cored":
+            mfs = hard["surfaces"].query("well == @name and surface == 'MFS'")
+            assert len(mfs) >= HARD_CFG["wells"]["log_window"]["cored_min_mfs"], name
+    assert seen == set(range(1, n + 1))
+    assert max(deepest) > 1 and min(shallowest) < n
+    assert len(set(zip(deepest, shallowest, strict=True))) > 1
+
+
+def test_hard_preset_surfaces_inside_the_log(hard: dict) -> None:
+    _inside_log(hard["surfaces"], hard["wells"])
+
+
+def test_hard_preset_eroded_sequence_has_no_mfs(hard: dict) -> None:
+    """In the eroded wells the eroded sequence has TST (and LST) only, no MFS in the truth
+    surfaces; the SB above the erosion is the next sequence's SB, and below it lies the
+    eroded sequence's TST."""
+    eroded = {n: w["eroded_sequences"] for n, w in hard["wells"].items() if w["eroded_sequences"]}
+    assert len(eroded) == HARD_CFG["thickness"]["erosion"]["wells"] == 2
+    surf = hard["surfaces"]
+    for name, (k,) in eroded.items():
+        t, s = hard["truth"][name], surf[surf["well"] == name]
+        g = t[t["sequence"] == k]
+        assert len(g) > 0 and set(g["systems_tract"]) <= {"LST", "TST"}, (name, k)
+        assert s.query("surface == 'MFS' and sequence == @k").empty, (name, k)
+        assert len(s.query("surface == 'MFS' and sequence == @k + 1")) == 1
+        sb = s.query("surface == 'SB' and sequence == @k + 1")["depth"]
+        assert len(sb) == 1
+        below = t[t["depth"] > sb.iloc[0]].iloc[0]
+        above = t[t["depth"] < sb.iloc[0]].iloc[-1]
+        assert below["sequence"] == k and below["systems_tract"] == "TST"
+        assert above["sequence"] == k + 1
+    for name, w in hard["wells"].items():                 # non-eroded wells: every logged
+        if name in eroded:                                 # complete sequence has its MFS
+            continue
+        s = surf[surf["well"] == name]
+        inner = w["logged_sequences"][1:-1]
+        assert set(inner) <= set(s.loc[s["surface"] == "MFS", "sequence"]), name
+
+
+def test_hard_preset_core_sequence_names(hard: dict) -> None:
+    """core_intervals.csv `sequence` S<k> equals the truth per-sample sequence k at every core
+    sample depth (core depth + core shift = log depth)."""
+    core = hard["core"]
+    assert list(core.columns) == ["well", "top", "base", "lithofacies", "systems_tract",
+                                  "sequence"]
+    cored = [n for n, w in hard["wells"].items() if w["role"] == "cored"]
+    assert sorted(core["well"].unique()) == sorted(cored)
+    n_checked = 0
+    for name in cored:
+        w, t = hard["wells"][name], hard["truth"][name]
+        c = core[core["well"] == name]
+        depth = t["depth"].to_numpy()
+        for top, base, seq in zip(c["top"], c["base"], c["sequence"], strict=True):
+            sel = (depth >= top + w["core_shift"] - 1e-6) & (depth <= base + w["core_shift"])
+            assert sel.any()
+            assert set(("S" + t.loc[sel, "sequence"].astype(str)).tolist()) == {seq}
+            n_checked += int(sel.sum())
+        # cored over most of the logged interval, as in the demo
+        assert n_checked > 0 and (c["base"].max() - c["top"].min()) > 0.9 * (w["base"] - w["top"])
+    seqs = set(core["sequence"])
+    assert len(seqs) >= HARD_CFG["wells"]["log_window"]["cored_min_mfs"]
+
+
+def test_hard_preset_mfs_at_highest_gr_of_complete_sequences(hard: dict) -> None:
+    """Common practice: the MFS sits at the highest GR of its sequence (smoothed true GR).
+    Adapted honestly for the hard preset: only COMPLETE logged sequences are checked (both
+    their SB and the next SB, or the column top, are logged); a sequence cut by the log window
+    or eroded has its GR maximum elsewhere or no MFS. The truth GR includes the hot-shale
+    stringers; the demo's smoothing window and tolerance still hold (measured max ~8 ft on
+    seeds 1, 2, 3, 7 at full size)."""
+    n = hard["basin"]["n_sequences"]
+    offsets = []
+    for name, w in hard["wells"].items():
+        t = hard["truth"][name]
+        s = hard["surfaces"][hard["surfaces"]["well"] == name]
+        win = max(1, round(CHECKS["mfs_gr_smoothing_ft"] / (w["step"] * _ft(w))))
+        sgr = uniform_filter1d(t["gr_api"].to_numpy(), win, mode="nearest")
+        sbs = set(s.loc[s["surface"] == "SB", "sequence"])
+        for seq, g in t.groupby("sequence"):
+            mfs = s[(s["sequence"] == seq) & (s["surface"] == "MFS")]
+            top_ok = (seq + 1 in sbs) or (seq == n and w["log_window_cut_sequences"]["top"] == 0)
+            if seq not in sbs or not top_ok or mfs.empty:
+                continue
+            i = g.index[int(np.argmax(sgr[g.index]))]
+            offsets.append(abs(t.loc[i, "depth"] - mfs["depth"].iloc[0]) * _ft(w))
+    assert len(offsets) >= 3 * len(hard["wells"])
+    assert max(offsets) <= CHECKS["mfs_tolerance_ft"], max(offsets)
+
+
+def test_hard_preset_stringers_drift_and_calibration(hard: dict) -> None:
+    """Hot stringers raise the true GR by about their recorded amount over their thickness;
+    GR calibration (scale, offset) lies in the hard ranges; the logged GR follows
+    scale * true + offset + recorded drift (compared at the log top and base)."""
+    lg = HARD_CFG["logging"]
+    hs = HARD_CFG["composition"]["hot_stringers"]
+    n_beds = 0
+    for name, w in hard["wells"].items():
+        t = hard["truth"][name]
+        assert lg["gr_scale"][0] <= w["gr_scale"] <= lg["gr_scale"][1]
+        assert lg["gr_offset_api"][0] <= w["gr_offset_api"] <= lg["gr_offset_api"][1]
+        depth, gr = t["depth"].to_numpy(), t["gr_api"].to_numpy()
+        for bed in w["hot_stringers"]:
+            inside = (depth > bed["top"]) & (depth < bed["base"])
+            assert inside.any()
+            assert set(t.loc[inside, "systems_tract"]) <= set(hs["tracts"])
+            thick = (bed["base"] - bed["top"]) * _ft(w)
+            assert hs["thickness_ft"][0] - w["step"] <= thick <= hs["thickness_ft"][1] + w["step"]
+            assert hs["gr_api"][0] <= bed["gr_added_api"] <= hs["gr_api"][1]
+            n_beds += 1
+        dr = w["gr_drift_api"]
+        assert dr is not None and dr["max_abs"] <= (lg["gr_drift"]["linear_api"]
+                                                    + lg["gr_drift"]["wave_api"])
+        las = lasio.read(str(hard["dir"] / f"{name}.las"))
+        logged = las[w["curves"]["gr_api"]]
+        model = w["gr_scale"] * uniform_filter1d(gr, 5, mode="nearest") + w["gr_offset_api"]
+        k = max(20, len(gr) // 40)
+        assert abs(np.nanmedian((logged - model)[:k]) - dr["top"]) < 4.0, name
+        assert abs(np.nanmedian((logged - model)[-k:]) - dr["base"]) < 4.0, name
+    assert n_beds >= len(hard["wells"])
+
+
+def test_hard_preset_harder_than_demo() -> None:
+    """The hard preset's settings: thinner sequences, more noise, stronger GR calibration."""
+    demo, hard_cfg = CFG, HARD_CFG
+    for tract, rate in demo["thickness"]["base_rate_ft"].items():
+        assert hard_cfg["thickness"]["base_rate_ft"][tract] == pytest.approx(rate / 2)
+    for key, sigma in demo["logging"]["noise"].items():
+        if key != "cali":
+            assert hard_cfg["logging"]["noise"][key] == pytest.approx(2 * sigma)
+    assert hard_cfg["logging"]["gr_offset_api"][1] > demo["logging"]["gr_offset_api"][1]
+    assert demo["thickness"]["erosion"]["wells"] == 0
+    assert demo["composition"]["hot_stringers"]["per_100ft"] == 0

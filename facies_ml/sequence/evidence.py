@@ -62,8 +62,56 @@ def facies_stacking_features(facies_proba: np.ndarray, labels: list[str], step: 
     return pd.DataFrame(cols, index=index)
 
 
+def _nan_window_means(x: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Like :func:`_window_means` for one curve with NaN gaps (mean of the finite values)."""
+    ok = np.isfinite(x)
+    v = np.where(ok, x, 0.0)[:, None]
+    c = ok.astype(float)[:, None]
+    sa, sb = _window_means(v, n)
+    ca, cb = _window_means(c, n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (np.where(ca > 0.5, sa / ca, np.nan)[:, 0], np.where(cb > 0.5, sb / cb, np.nan)[:, 0])
+
+
+def _extreme_height(x: np.ndarray, n: int, step: float, highest: bool) -> np.ndarray:
+    """Height (depth units, positive = the sample lies above it) of the sample above the
+    highest (or lowest) value within ``n`` samples either side."""
+    T = x.size
+    filled = np.where(np.isfinite(x), x, -np.inf if highest else np.inf)
+    pad = np.concatenate([np.full(n, filled[0]), filled, np.full(n, filled[-1])])
+    win = np.lib.stride_tricks.sliding_window_view(pad, 2 * n + 1)
+    k = np.argmax(win, axis=1) if highest else np.argmin(win, axis=1)
+    out = (k - n) * step                  # top-down index offset: positive = extreme is deeper
+    return np.where(np.isfinite(x), out, np.nan)[:T]
+
+
+def curve_stacking_features(X: pd.DataFrame, curves: list[str], step: float,
+                            windows: list[float]) -> pd.DataFrame:
+    """Stacking of whole log curves: per window W the mean of each curve over W above and
+    below the sample and their difference (``<curve>_upward_w<W>``, positive = increasing
+    upward), and the height of the sample above the highest and the lowest value within W
+    (``<curve>_above_max_w<W>`` / ``<curve>_above_min_w<W>``). Common practice: GR increases
+    upward in a TST, decreases in an HST; the MFS sits at the GR maximum, the SB near the
+    most regressive (lowest GR) level."""
+    cols: dict[str, np.ndarray] = {}
+    for name in curves:
+        if name not in X:
+            continue
+        x = X[name].to_numpy(float)
+        for w in windows:
+            n = max(1, int(round(float(w) / step)))
+            above, below = _nan_window_means(x, n)
+            tag = f"{float(w):g}"
+            cols[f"{name}_upward_w{tag}"] = above - below
+            cols[f"{name}_above_max_w{tag}"] = _extreme_height(x, n, step, True)
+            cols[f"{name}_above_min_w{tag}"] = _extreme_height(x, n, step, False)
+    return pd.DataFrame(cols, index=X.index)
+
+
 def tract_evidence_matrix(X: pd.DataFrame, facies_proba: np.ndarray, labels: list[str],
-                          step: float, windows: list[float]) -> pd.DataFrame:
-    """Log features ``X`` (TOP-DOWN) joined with :func:`facies_stacking_features`."""
-    return pd.concat([X, facies_stacking_features(facies_proba, labels, step, windows, X.index)],
-                     axis=1)
+                          step: float, windows: list[float], curves: list[str],
+                          curve_windows: list[float]) -> pd.DataFrame:
+    """Log features ``X`` (TOP-DOWN) joined with :func:`facies_stacking_features` and
+    :func:`curve_stacking_features`."""
+    return pd.concat([X, facies_stacking_features(facies_proba, labels, step, windows, X.index),
+                      curve_stacking_features(X, curves, step, curve_windows)], axis=1)

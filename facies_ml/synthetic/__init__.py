@@ -24,11 +24,17 @@ from facies_ml.synthetic.petrophysics import rock_logs
 from facies_ml.synthetic.writers import write_csv, write_json, write_las
 
 DEFAULT_SYNTH_CONFIG = CONFIG_DIR / "synthetic_basin.yaml"
+PRESETS: dict[str, Path] = {"demo": DEFAULT_SYNTH_CONFIG,
+                            "hard": CONFIG_DIR / "synthetic_hard.yaml"}
 DEFAULT_SEED = 20261202
 M_PER_FT = 0.3048
 
-__all__ = ["BasinSummary", "DEFAULT_SEED", "DEFAULT_SYNTH_CONFIG", "generate_basin",
+__all__ = ["BasinSummary", "DEFAULT_SEED", "DEFAULT_SYNTH_CONFIG", "PRESETS", "generate_basin",
            "load_synth_config"]
+
+# keys a synth YAML must carry beyond the sections (section, key)
+_REQUIRED_KEYS = [("thickness", "erosion"), ("composition", "hot_stringers"),
+                  ("logging", "gr_drift"), ("wells", "log_window")]
 
 
 @dataclass
@@ -62,6 +68,12 @@ def load_synth_config(path: str | Path | None = None) -> dict[str, Any]:
                      ("composition", "toc_scale"), ("facies", "bed_median_ft")]:
         if len(cfg[sec].get(key) or []) != n:
             raise InputError(f"{sec}.{key} needs {n} values (one per lithofacies)", file=str(path))
+    if not str(cfg.get("preset") or "").strip():
+        raise InputError("missing setting preset (a name such as demo)", file=str(path))
+    for sec, key in _REQUIRED_KEYS:
+        if not isinstance(cfg[sec].get(key), dict):
+            raise InputError(f"missing setting {sec}.{key} (see configs/synthetic_basin.yaml)",
+                             file=str(path))
     for tract in strat.TRACTS:
         mix = cfg["facies"]["mix"].get(tract) or {}
         for end in ("base", "top"):
@@ -140,6 +152,117 @@ def _compose(fac: np.ndarray, col: strat.Column, comp: dict[str, Any], rng: np.r
             "u_extra": u_extra}
 
 
+def _hot_stringers(col: strat.Column, step: float, hs: dict[str, Any], u_per_api: float,
+                   window: tuple[int, int], rng: np.random.Generator
+                   ) -> tuple[np.ndarray, list[tuple[int, int, float]]]:
+    """Thin uranium-rich (hot shale) beds inside the configured tracts of the logged window
+    (up-section indices [lo, hi)), up-section order.
+
+    Returns the extra uranium (ppm) per sample and the beds as (first, end, GR added in gAPI).
+    A bed stays inside the tract and sequence where it starts.
+    """
+    n = len(col.height_ft)
+    extra = np.zeros(n)
+    beds: list[tuple[int, int, float]] = []
+    rate = float(hs["per_100ft"])
+    tracts = [strat.TRACTS.index(t) for t in hs["tracts"]]
+    where = np.flatnonzero(np.isin(col.tract, tracts))
+    where = where[(where >= window[0]) & (where < window[1])]
+    if rate <= 0.0 or where.size == 0:
+        return extra, beds
+    count = int(rng.poisson(rate * where.size * step / 100.0))
+    for start in np.sort(rng.choice(where, size=min(count, where.size), replace=False)):
+        i0 = int(start)
+        length = max(1, int(round(float(rng.uniform(*hs["thickness_ft"])) / step)))
+        i1 = i0
+        while (i1 < min(n, window[1]) and i1 - i0 < length and col.tract[i1] == col.tract[i0]
+               and col.sequence[i1] == col.sequence[i0]):
+            i1 += 1
+        add = float(rng.uniform(*hs["gr_api"]))
+        if beds and i0 < beds[-1][1]:                 # overlaps the previous bed: skip it
+            continue
+        extra[i0:i1] += add * u_per_api
+        beds.append((i0, i1, round(add, 1)))
+    return extra, beds
+
+
+def _log_window(col: strat.Column, role: str, lw: dict[str, Any], n_seq: int,
+                rng: np.random.Generator) -> tuple[int, int, float, float]:
+    """Logged sub-range of the simulated column (up-section indices [lo, hi)) and the cuts.
+
+    The base cut removes ``cut_base`` sequences' worth of rock from the bottom (fractions cut
+    into the next sequence), the top cut likewise from the top. Cored wells keep at least
+    ``cored_min_mfs`` sequences whose MFS is logged (cuts halved until they do).
+    """
+    n = len(col.height_ft)
+    total = float(col.height_ft[-1] + (col.height_ft[1] - col.height_ft[0]) / 2) if n > 1 else 0.0
+    bounds = np.concatenate([col.sb_height_ft, [total]])
+    cb = float(rng.uniform(*lw["cut_base_sequences"]))
+    ct = float(rng.uniform(*lw["cut_top_sequences"]))
+
+    def heights(cb: float, ct: float) -> tuple[float, float]:
+        kb = min(int(cb), n_seq - 1)
+        lo = bounds[kb] + (cb - kb) * (bounds[kb + 1] - bounds[kb])
+        kt = min(int(ct), n_seq - 1)
+        hi = bounds[n_seq - kt] - (ct - kt) * (bounds[n_seq - kt] - bounds[n_seq - kt - 1])
+        return float(lo), float(hi)
+
+    for _ in range(8):
+        lo_h, hi_h = heights(cb, ct)
+        mfs = col.mfs_height_ft[np.isfinite(col.mfs_height_ft)]
+        seen = int(((mfs > lo_h) & (mfs < hi_h)).sum())
+        if role != "cored" or seen >= int(lw["cored_min_mfs"]):
+            break
+        cb, ct = cb / 2.0, ct / 2.0
+    else:
+        cb, ct = 0.0, 0.0
+        lo_h, hi_h = heights(cb, ct)
+    keep = np.flatnonzero((col.height_ft >= lo_h) & (col.height_ft <= hi_h))
+    if cb == 0.0 and ct == 0.0:
+        return 0, n, 0.0, 0.0
+    return int(keep[0]), int(keep[-1]) + 1, round(cb, 3), round(ct, 3)
+
+
+def _gr_drift(n: int, gd: dict[str, Any], rng: np.random.Generator) -> np.ndarray | None:
+    """Slow GR drift along the hole (gAPI, log order): a linear ramp plus one low-frequency
+    wave; None when both amplitudes are zero."""
+    lin, wave = float(gd["linear_api"]), float(gd["wave_api"])
+    if lin <= 0.0 and wave <= 0.0:
+        return None
+    x = np.linspace(0.0, 1.0, n)
+    a = float(rng.uniform(-lin, lin))
+    b = float(rng.uniform(-wave, wave))
+    cycles = float(rng.uniform(*gd["wave_cycles"]))
+    phi = float(rng.uniform(0.0, 2.0 * np.pi))
+    return a * (2.0 * x - 1.0) + b * np.sin(2.0 * np.pi * cycles * x + phi)
+
+
+def _hard_features(cfg: dict[str, Any]) -> bool:
+    """True when any setting beyond the demo's is switched on (then basin.json records it)."""
+    lw, gd = cfg["wells"]["log_window"], cfg["logging"]["gr_drift"]
+    return bool(max(lw["cut_base_sequences"]) > 0 or max(lw["cut_top_sequences"]) > 0
+                or int(cfg["thickness"]["erosion"]["wells"]) > 0
+                or float(cfg["composition"]["hot_stringers"]["per_100ft"]) > 0
+                or float(gd["linear_api"]) > 0 or float(gd["wave_api"]) > 0)
+
+
+def _erosion_plan(n_wells: int, cfg: dict[str, Any], seed: int) -> dict[int, tuple[int, float]]:
+    """Well index -> (eroded sequence, kept TST share). The sequence is one that every log
+    window still contains in full, so the erosion is always logged."""
+    er = cfg["thickness"]["erosion"]
+    lw = cfg["wells"]["log_window"]
+    n_seq = int(cfg["sea_level"]["n_sequences"])
+    count = min(int(er["wells"]), n_wells)
+    lo = max(2, int(max(lw["cut_base_sequences"])) + 2)
+    hi = min(n_seq - 1, n_seq - int(max(lw["cut_top_sequences"])) - 1)
+    if count <= 0 or lo > hi:
+        return {}
+    rng = np.random.default_rng([seed, 6])
+    wells = sorted(int(i) for i in rng.choice(n_wells, size=count, replace=False))
+    return {i: (int(rng.integers(lo, hi + 1)), round(float(rng.uniform(*er["tst_kept"])), 3))
+            for i in wells}
+
+
 def _simulate_well(w: dict[str, Any], n_samples: int, segs: list[strat.Segment],
                    history: strat.BasinHistory, cfg: dict[str, Any], seed: int, idx: int
                    ) -> dict[str, Any]:
@@ -150,14 +273,24 @@ def _simulate_well(w: dict[str, Any], n_samples: int, segs: list[strat.Segment],
     col = strat.build_column(segs, n_samples, step, w["position"], history, cfg["sea_level"])
     fac = strat.lay_beds(col, step, w["position"], cfg["facies"], rng_geo)
     rock = _compose(fac, col, cfg["composition"], rng_geo)
-    lo, hi = cfg["petrophysics"]["maturity"]
-    maturity = lo + (hi - lo) * w["position"]
+    n_seq = len(col.sb_height_ft)
+    lo, hi, cut_base, cut_top = _log_window(col, w["role"], cfg["wells"]["log_window"], n_seq,
+                                            np.random.default_rng([seed, 5, idx]))
+    u_per_api = 1.0 / float(cfg["petrophysics"]["gr_api_coeff"]["u_ppm"])
+    hot_u, hot = _hot_stringers(col, step, cfg["composition"]["hot_stringers"], u_per_api,
+                                (lo, hi), np.random.default_rng([seed, 7, idx]))
+    if hot:
+        rock["u_extra"] = rock["u_extra"] + hot_u
+    mat_lo, mat_hi = cfg["petrophysics"]["maturity"]
+    maturity = mat_lo + (mat_hi - mat_lo) * w["position"]
     truth = rock_logs(rock["clay"], rock["quartz"], rock["calcite"], rock["phi"], rock["toc"],
                       maturity, cfg["petrophysics"], float(cfg["composition"]["kerogen_per_toc"]),
                       rock["u_extra"])
     truth["toc_wt_pct"] = rock["toc"]
-    flip = slice(None, None, -1)                 # up-section -> log (top-down) order
+    # up-section -> log (top-down) order, logged window only
+    flip = slice(hi - 1, lo - 1 if lo > 0 else None, -1)
     truth = {k: v[flip] for k, v in truth.items()}
+    n_samples = hi - lo
     lg = cfg["logging"]
     bs = float(lg["bit_size_in"][idx % len(lg["bit_size_in"])])
     washouts = tools.washout_intervals(n_samples, step, lg, rng_log)
@@ -165,8 +298,9 @@ def _simulate_well(w: dict[str, Any], n_samples: int, segs: list[strat.Segment],
     dens, pe = cfg["petrophysics"]["density_g_cc"], cfg["petrophysics"]["pe_b_e"]
     gr_scale = round(float(rng_log.uniform(*lg["gr_scale"])), 3)
     gr_offset = round(float(rng_log.uniform(*lg["gr_offset_api"])), 2)
+    drift = _gr_drift(n_samples, lg["gr_drift"], np.random.default_rng([seed, 8, idx]))
     logs = tools.log_curves(truth, lg, {"rho": dens["mud"], "pe": pe["mud"]}, washouts, cal, bs,
-                            gr_scale, gr_offset, rng_log)
+                            gr_scale, gr_offset, rng_log, drift)
     if not w["has_pe"]:
         del logs["pe"]
     if not w["spectral"]:
@@ -185,6 +319,10 @@ def _simulate_well(w: dict[str, Any], n_samples: int, segs: list[strat.Segment],
         "sequence": col.sequence[flip], "sea_level": col.sea_level[flip],
         "water_depth": col.water_depth[flip], "phase": col.phase[flip],
         "height_ft": col.height_ft[flip],
+        "n_full": len(col.height_ft), "first": len(col.height_ft) - hi,   # log-order offset
+        "cut_base": cut_base, "cut_top": cut_top, "drift": drift,
+        "hot": sorted((hi - min(b, hi), hi - max(a, lo), g) for a, b, g in hot
+                      if max(a, lo) < min(b, hi)),
     }
 
 
@@ -208,9 +346,19 @@ def _mnemonic(key: str, w: dict[str, Any]) -> str:
             "cali": m["caliper"], "bs": "BS"}[key]
 
 
-def _readme(cfg: dict[str, Any], seed: int, plan: list[dict[str, Any]]) -> str:
+def _readme(cfg: dict[str, Any], seed: int, plan: list[dict[str, Any]], extras: bool) -> str:
     rows = "\n".join(f"| {w['name']} | {w['role']} | {w['position']:.2f} | {w['unit']} |"
                      for w in plan)
+    hard = ""
+    if extras:
+        hard = f"""
+Preset {cfg['preset']!r} adds: each well's log is a different sub-interval of the column (the
+top and base of the formation are cut away by different amounts, so logs start and stop in
+different sequences); in some wells one interior sequence lost its HST and upper TST to erosion
+below the next SB (no MFS for it); thin hot-shale stringers (uranium) in highstand tracts; a
+slow GR calibration drift along the hole. basin.json records, per well, `logged_sequences`,
+`log_window_cut_sequences`, `eroded_sequences`, `gr_drift_api` and `hot_stringers`.
+"""
     return f"""# Synthetic demo basin: {cfg['basin']}, {cfg['formation']}
 
 CAUTION: this is INVENTED demo data made by a forward model (facies_ml.synthetic, generator
@@ -222,18 +370,22 @@ third-order cycles) sets systems tracts (LST in basinward wells only, TST, EHST,
 partly eroded below each SB in proximal wells); tracts set a lithofacies bed mix; lithofacies
 and water depth set minerals, porosity and TOC; simple petrophysics gives the logs; tool
 response, noise, GR calibration, washouts, spikes and NULL gaps make them look logged.
-
+{hard}
 | well | role | position (0 proximal, 1 distal) | depth unit |
 |---|---|---|---|
 {rows}
 
 Files (depth increases downward; sequences are numbered from the deepest = 1):
 - `<WELL>.las`: LAS 2.0 logs, NULL -999.25, depth in the well's unit.
-- `core_intervals.csv`: `well,top,base,lithofacies,systems_tract`, cored wells only, in CORE
-  depth (log depth = core depth + shift; the shift per well is in basin.json and truth).
+- `core_intervals.csv`: `well,top,base,lithofacies,systems_tract,sequence`, cored wells only,
+  in CORE depth (log depth = core depth + shift; the shift per well is in basin.json and
+  truth). `sequence` is the geologist's basin-wide sequence name `S<k>` (k = the truth
+  `sequence` number, 1 = deepest); intervals split where lithofacies, tract or sequence change.
 - `core_gamma.csv`: `well,depth,core_gr_api`, gamma measured on the core, in core depth.
 - `truth/<WELL>.csv`: the true model at every LAS sample (log depth), noise-free values.
-- `truth/surfaces.csv`: `well,surface,depth,sequence` (SB = base of the sequence, MFS).
+- `truth/surfaces.csv`: `well,surface,depth,sequence,depth_unit` (SB = base of the sequence,
+  MFS; depth in the well's own unit, `depth_unit` ft or m). Only surfaces strictly inside the
+  logged interval, at least one sample step from its top and base, are listed.
 - `basin.json`: roles, positions, units, missing curves, washouts, spikes, NULL gaps, core
   shift, GR calibration, seed and generator version.
 """
@@ -244,9 +396,10 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
                    samples_per_well: int | None = None) -> BasinSummary:
     """Write a synthetic demo basin into ``out_dir`` and return what was written.
 
-    ``samples_per_well``: mean samples per well (default: the thickness the settings give,
-    2,000-4,000 samples at 0.5 ft); lateral thickness differences are kept.
-    Same inputs give byte-identical files.
+    ``samples_per_well``: mean samples per well of the SIMULATED column (default: the
+    thickness the settings give, 2,000-4,000 samples at 0.5 ft for the demo); lateral thickness
+    differences are kept. Where the settings cut a log window (``wells.log_window``), each LAS
+    holds only its kept sub-range, so fewer samples. Same inputs give byte-identical files.
     """
     if int(n_wells) < 2:
         raise InputError(f"n_wells must be at least 2, not {n_wells}")
@@ -262,8 +415,10 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
     step_ft = float(cfg["step_ft"])
     rng_basin = np.random.default_rng([seed, 1])
     history = strat.make_history(cfg["sea_level"], cfg["thickness"], rng_basin)
+    erosion = _erosion_plan(len(plan), cfg, seed)
     segs = [strat.well_segments(w["position"], history, cfg["sea_level"], cfg["thickness"],
-                                rng_basin) for w in plan]
+                                rng_basin, erosion.get(i)) for i, w in enumerate(plan)]
+    extras = _hard_features(cfg)
     totals = np.array([sum(s.thickness_ft for s in ss) for ss in segs])
     scale = 1.0 if samples_per_well is None else samples_per_well * step_ft / totals.mean()
     th = cfg["thickness"]
@@ -272,16 +427,19 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
     surfaces, core_rows, gamma_rows, meta = [], [], [], []
     cored_no = 0
     for idx, (w, ss) in enumerate(zip(plan, segs, strict=True)):
-        n = int(round(totals[idx] * scale / step_ft))
-        sim = _simulate_well(w, n, ss, history, cfg, seed, idx)
+        n_full = int(round(totals[idx] * scale / step_ft))
+        sim = _simulate_well(w, n_full, ss, history, cfg, seed, idx)
+        n = len(sim["sequence"])
         top_lo, top_hi = th["top_depth_ft"]
         top_ft = top_lo + (top_hi - top_lo) * w["position"] + float(th["top_depth_jitter_ft"]) * \
             rng_basin.uniform(-1.0, 1.0)
         top_ft = round(top_ft / step_ft) * step_ft
         f = M_PER_FT if w["unit"] == "m" else 1.0
         step = float(cfg["step_m"]) if w["unit"] == "m" else step_ft
-        depth = np.round(top_ft * f + np.arange(n) * step, dec)
-        base_edge = top_ft + (n - 0.5) * step_ft      # ft, bottom edge of the deepest sample
+        # top_ft is the formation top (top of the simulated column); the log keeps samples
+        # first .. first + n - 1 of it
+        depth = np.round(top_ft * f + (sim["first"] + np.arange(n)) * step, dec)
+        base_edge = top_ft + (n_full - 0.5) * step_ft  # ft, bottom edge of the simulated column
         # --- LAS ---
         logs = dict(sim["logs"])
         if w["nphi_unit"] == "%":
@@ -329,10 +487,13 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
         col = sim["col"]
         for k in range(len(col.sb_height_ft)):
             for surf, hgt in (("SB", col.sb_height_ft[k]), ("MFS", col.mfs_height_ft[k])):
-                if np.isfinite(hgt):
-                    surfaces.append({"well": w["name"], "surface": surf,
-                                     "depth": round((base_edge - hgt) * f, dec),
-                                     "sequence": k + 1})
+                if not np.isfinite(hgt):
+                    continue
+                d = round((base_edge - hgt) * f, dec)
+                # observable only strictly inside the log, one sample step from either end
+                if depth[0] + step - 1e-9 <= d <= depth[-1] - step + 1e-9:
+                    surfaces.append({"well": w["name"], "surface": surf, "depth": d,
+                                     "sequence": k + 1, "depth_unit": w["unit"]})
         # --- core ---
         core_meta: dict[str, Any] = {}
         if w["role"] == "cored":
@@ -340,10 +501,14 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
             core_meta = _core(w, cored_no, depth, step, f, sim, cfg, seed, idx, core_rows,
                               gamma_rows)
         meta.append(_well_meta(w, depth, step, n, sim, core_meta, dec))
-    write_csv(out / "truth" / "surfaces.csv", pd.DataFrame(surfaces), dec)
+        if extras:
+            meta[-1].update(_extra_meta(sim, depth, step, erosion.get(idx), dec))
+    write_csv(out / "truth" / "surfaces.csv",
+              pd.DataFrame(surfaces, columns=["well", "surface", "depth", "sequence",
+                                              "depth_unit"]), dec)
     write_csv(out / "core_intervals.csv",
               pd.DataFrame(core_rows, columns=["well", "top", "base", "lithofacies",
-                                               "systems_tract"]), dec)
+                                               "systems_tract", "sequence"]), dec)
     write_csv(out / "core_gamma.csv",
               pd.DataFrame(gamma_rows, columns=["well", "depth", "core_gr_api"]), dec)
     basin = {
@@ -354,8 +519,10 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
         "position_convention": "0 = most proximal, 1 = most distal",
         "wells": meta,
     }
+    if extras:
+        basin["preset"] = str(cfg["preset"])
     write_json(out / "basin.json", basin)
-    (out / "README.md").write_text(_readme(cfg, seed, plan), newline="\n")
+    (out / "README.md").write_text(_readme(cfg, seed, plan, extras), newline="\n")
     files += [out / "truth" / "surfaces.csv", out / "core_intervals.csv", out / "core_gamma.csv",
               out / "basin.json", out / "README.md"]
     return BasinSummary(out_dir=out, wells={w["name"]: w["role"] for w in plan}, files=files)
@@ -380,6 +547,7 @@ def _core(w: dict[str, Any], cored_no: int, depth: np.ndarray, step: float, f: f
         lost = [round(depth[g0] - step / 2 - shift, dec), round(depth[g1 - 1] + step / 2 - shift,
                                                                  dec)]
     lab = np.char.add(np.char.add(sim["lithofacies"].astype(str), "|"), sim["tract"].astype(str))
+    lab = np.char.add(np.char.add(lab, "|"), sim["sequence"].astype(str))
     i = 0
     while i < n:
         if not keep[i]:
@@ -390,7 +558,8 @@ def _core(w: dict[str, Any], cored_no: int, depth: np.ndarray, step: float, f: f
             j += 1
         core_rows.append({"well": w["name"], "top": round(depth[i] - step / 2 - shift, dec),
                           "base": round(depth[j] + step / 2 - shift, dec),
-                          "lithofacies": sim["lithofacies"][i], "systems_tract": sim["tract"][i]})
+                          "lithofacies": sim["lithofacies"][i], "systems_tract": sim["tract"][i],
+                          "sequence": f"S{int(sim['sequence'][i])}"})
         i = j + 1
     rng = np.random.default_rng([seed, 4, idx])
     g = tools.tool_response(sim["truth"]["gr_api"], float(cc["gamma_sigma_samples"]))
@@ -400,6 +569,25 @@ def _core(w: dict[str, Any], cored_no: int, depth: np.ndarray, step: float, f: f
                            "core_gr_api": round(float(g[k]), 2)})
     return {"core_shift": shift, "core_top": round(depth[i0] - step / 2 - shift, dec),
             "core_base": round(depth[i1 - 1] + step / 2 - shift, dec), "lost_core": lost}
+
+
+def _extra_meta(sim: dict[str, Any], depth: np.ndarray, step: float,
+                eroded: tuple[int, float] | None, dec: int) -> dict[str, Any]:
+    """basin.json additions of the presets beyond the demo (log depth, the well's unit)."""
+    half = step / 2
+    drift = sim["drift"]
+    return {
+        "logged_sequences": sorted({int(k) for k in sim["sequence"]}),
+        "log_window_cut_sequences": {"base": sim["cut_base"], "top": sim["cut_top"]},
+        "eroded_sequences": [] if eroded is None else [eroded[0]],
+        "eroded_tst_kept": None if eroded is None else eroded[1],
+        "gr_drift_api": None if drift is None else {
+            "top": round(float(drift[0]), 2), "base": round(float(drift[-1]), 2),
+            "max_abs": round(float(np.abs(drift).max()), 2)},
+        "hot_stringers": [{"top": round(float(depth[a]) - half, dec),
+                           "base": round(float(depth[b - 1]) + half, dec), "gr_added_api": g}
+                          for a, b, g in sim["hot"]],
+    }
 
 
 def _well_meta(w: dict[str, Any], depth: np.ndarray, step: float, n: int, sim: dict[str, Any],

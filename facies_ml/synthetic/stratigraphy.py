@@ -50,9 +50,15 @@ def tract_phases(sea: dict[str, Any]) -> dict[str, tuple[float, float]]:
 
 
 def well_segments(position: float, history: BasinHistory, sea: dict[str, Any],
-                  thick: dict[str, Any], rng: np.random.Generator) -> list[Segment]:
+                  thick: dict[str, Any], rng: np.random.Generator,
+                  eroded: tuple[int, float] | None = None) -> list[Segment]:
     """Deposited tracts of one well, up-section, with lateral thickness change, LST only in
-    basinward wells and erosional truncation of the LHST below each SB in proximal wells."""
+    basinward wells and erosional truncation of the LHST below each SB in proximal wells.
+
+    ``eroded`` = (sequence, kept share of its TST): that sequence loses its whole HST (EHST,
+    LHST, so its MFS) and the upper part of its TST below the next SB. The random draws are the
+    same with or without erosion, so the other wells do not change.
+    """
     phases = tract_phases(sea)
     n = len(history.thickness_factor)
     lst = position >= float(sea["lst_min_position"])
@@ -70,7 +76,12 @@ def well_segments(position: float, history: BasinHistory, sea: dict[str, Any],
             rate = float(thick["base_rate_ft"][tract])
             rate *= 1.0 + float(thick["lateral_slope"][tract]) * (position - 0.5)
             rate *= 1.0 + float(thick["well_jitter"]) * rng.standard_normal()
+            gone = eroded is not None and eroded[0] == k + 1
+            if eroded is not None and gone and tract == "TST":
+                p1 = p0 + float(eroded[1]) * (p1 - p0)
             h = rate * (p1 - p0) * duration * history.thickness_factor[k]
+            if gone and tract in ("EHST", "LHST"):
+                continue
             segs.append(Segment(k + 1, tract, p0, p1, max(h, 0.0)))
     return segs
 

@@ -50,9 +50,11 @@ def caliper(n: int, bit_size: float, washouts: list[tuple[int, int, float]], noi
 
 def log_curves(truth: dict[str, np.ndarray], log_cfg: dict[str, Any], mud: dict[str, float],
                washouts: list[tuple[int, int, float]], cal: np.ndarray, bit_size: float,
-               gr_scale: float, gr_offset: float, rng: np.random.Generator
-               ) -> dict[str, np.ndarray]:
-    """Smoothed, calibrated, borehole-affected and noisy logs (before spikes / NULL gaps)."""
+               gr_scale: float, gr_offset: float, rng: np.random.Generator,
+               gr_drift: np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Smoothed, calibrated, borehole-affected and noisy logs (before spikes / NULL gaps).
+
+    ``gr_drift`` (gAPI per sample, optional) is a slow calibration drift added to the GR."""
     sm, nz = log_cfg["smoothing_sigma_samples"], log_cfg["noise"]
     out: dict[str, np.ndarray] = {}
     for key, (col, skey) in CURVES.items():
@@ -68,6 +70,8 @@ def log_curves(truth: dict[str, np.ndarray], log_cfg: dict[str, Any], mud: dict[
     out["pe"] = out["pe"] - log_cfg["washout_density_loss"] * enl * (out["pe"] - mud["pe"])
     n = len(cal)
     gr = gr_scale * out["gr"] + gr_offset
+    if gr_drift is not None:
+        gr = gr + gr_drift
     counting = nz["gr_poisson_scale"] * np.sqrt(np.clip(gr, 1.0, None))
     out["gr"] = gr + counting * rng.standard_normal(n)
     out["rt"] = out["rt"] * 10.0 ** (nz["rt_log10"] * rng.standard_normal(n))
