@@ -47,12 +47,14 @@ def _number(value: object, src: str, row: int, column: str) -> float:
 
 def read_core_intervals(path: str | Path, scheme: FaciesScheme,
                         known_wells: Iterable[str] | None = None) -> pd.DataFrame:
-    """Read a core interval CSV: columns ``well, top, base, lithofacies[, systems_tract]``.
+    """Read a core interval CSV: columns ``well, top, base, lithofacies[, systems_tract]
+    [, sequence]``.
 
     ``lithofacies`` is a scheme label or code; ``systems_tract`` one of the scheme's tracts
     (either may be blank in a row, not both). Returns well, top, base, lithofacies (class index,
     -1 = none), systems_tract (index into ``scheme.systems_tracts``, -1 = none),
-    lithofacies_label, row. Depths in the well's original unit, top < base (downward).
+    lithofacies_label, sequence (the geologist's basin-wide sequence name, "" = none), row.
+    Depths in the well's original unit, top < base (downward).
     """
     src = str(path)
     frame = _read_csv(path)
@@ -95,11 +97,12 @@ def read_core_intervals(path: str | Path, scheme: FaciesScheme,
                 raise InputError(f"systems tract {str(tract).strip()!r} is not one of "
                                  f"{', '.join(scheme.systems_tracts)}", file=src, row=i, well=well)
             st = tracts_upper.index(t)
+        seq = rec.get("sequence")
         rows.append({"well": well, "top": top, "base": base, "lithofacies": litho,
-                     "systems_tract": st,
+                     "systems_tract": st, "sequence": "" if _blank(seq) else str(seq).strip(),
                      "lithofacies_label": scheme.labels[litho] if litho >= 0 else "", "row": i})
     out = pd.DataFrame(rows, columns=["well", "top", "base", "lithofacies", "systems_tract",
-                                      "lithofacies_label", "row"])
+                                      "sequence", "lithofacies_label", "row"])
     if out.empty:
         raise InputError("no core intervals", file=src)
     for well, g in out.sort_values(["well", "top", "base"], kind="mergesort").groupby("well"):
@@ -114,7 +117,8 @@ def read_core_intervals(path: str | Path, scheme: FaciesScheme,
 
 
 def intervals_to_labels(well: Well, intervals: pd.DataFrame, shift: float = 0.0) -> pd.DataFrame:
-    """Per-sample labels on ``well.curves.index``: lithofacies and systems_tract (int, -1 = none).
+    """Per-sample labels on ``well.curves.index``: lithofacies and systems_tract (int, -1 = none)
+    and sequence (the core file's sequence name, "" = none).
 
     Interval depths (original unit, core depth) are converted to the working unit and ``shift``
     (working unit) is added. A sample at depth d is labelled when top <= d < base.
@@ -122,6 +126,7 @@ def intervals_to_labels(well: Well, intervals: pd.DataFrame, shift: float = 0.0)
     depth = well.depth
     litho = np.full(depth.size, -1, dtype=int)
     tract = np.full(depth.size, -1, dtype=int)
+    seq_name = np.full(depth.size, "", dtype=object)
     mine = intervals[intervals["well"].astype(str) == well.name]
     f = depth_factor(well.original_depth_unit, well.depth_unit)
     for rec in mine.itertuples(index=False):
@@ -131,7 +136,11 @@ def intervals_to_labels(well: Well, intervals: pd.DataFrame, shift: float = 0.0)
             litho[inside] = rec.lithofacies
         if rec.systems_tract >= 0:
             tract[inside] = rec.systems_tract
-    return pd.DataFrame({"lithofacies": litho, "systems_tract": tract}, index=well.curves.index)
+        name = getattr(rec, "sequence", "")
+        if isinstance(name, str) and name:
+            seq_name[inside] = name
+    return pd.DataFrame({"lithofacies": litho, "systems_tract": tract, "sequence": seq_name},
+                        index=well.curves.index)
 
 
 def read_core_gamma(path: str | Path) -> pd.DataFrame:

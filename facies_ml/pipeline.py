@@ -16,7 +16,7 @@ Predictions are probabilistic and must be reviewed by a qualified geoscientist.
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import partial
 from typing import Any
 
@@ -25,12 +25,13 @@ import pandas as pd
 
 from facies_ml.applicability import FeatureEnvelope
 from facies_ml.config import Config
+from facies_ml.correlation import SequenceCorrelator, SequenceUnit, split_sequences, unit_names_from_samples
 from facies_ml.errors import InputError
 from facies_ml.features import build_features, feature_reference
 from facies_ml.lithofacies import LithofaciesClassifier, SubsetModels
 from facies_ml.sequence import TractSequenceModel, load_rules
 from facies_ml.sequence.evidence import tract_evidence_matrix
-from facies_ml.sequence.surfaces import SurfaceChecks
+from facies_ml.sequence.surfaces import Surface, SurfaceChecks
 from facies_ml.wells import GRNormalizer, Well
 
 UNLABELLED = -1
@@ -127,6 +128,7 @@ class FaciesPipeline:
         self.sequence_model_ = None
         if (yt >= 0).sum() > 0:
             self._fit_sequence_stage(frames, keep, y_facies, y_tract, params)
+            self._fit_correlation(labelled, [labels[w.name] for w in labelled])
         env = cfg.section("applicability")
         self.envelope_ = FeatureEnvelope(float(env.get("lower_quantile", 0.005)),
                                          float(env.get("upper_quantile", 0.995)),
@@ -222,6 +224,65 @@ class FaciesPipeline:
             low_confidence=float(ch["low_confidence"]),
             failed_check_confidence=float(ch["failed_check_confidence"]))
 
+    def _fit_correlation(self, wells: list[Well], labels: list[pd.DataFrame]) -> None:
+        """The basin's ordered sequence list from the cored wells' interpreted tracts and the
+        core file's sequence names (numbered by the tool when the core file has none)."""
+        c = self.config.section("correlation")
+        units: dict[str, list[SequenceUnit]] = {}
+        names: dict[str, list[str]] = {}
+        for w, lab in zip(wells, labels, strict=True):
+            yt = self.tract_states(lab["systems_tract"].reindex(w.curves.index)
+                                   .fillna(UNLABELLED).to_numpy(int))
+            ok = yt >= 0
+            if ok.sum() < 2:
+                continue
+            u = split_sequences(w.depth[ok], yt[ok], w.curves.loc[ok], self.tract_names_,
+                                self.rules_.sb_transitions,
+                                mfs_transitions=self.rules_.mfs_transitions, well=w.name)
+            units[w.name] = u
+            seq = (lab["sequence"].reindex(w.curves.index).fillna("").astype(str).to_numpy()[ok]
+                   if "sequence" in lab else np.full(int(ok.sum()), "", dtype=object))
+            names[w.name] = unit_names_from_samples(u, list(seq))
+        self.correlator_ = None
+        if not units:
+            return
+        named = all(all(n for n in v) for v in names.values())
+        self.correlator_ = SequenceCorrelator(
+            skip_cost_interior=float(c["skip_cost_interior"]), extra_cost=float(c["extra_cost"]),
+            feature_weights=c["feature_weights"],
+            spread_prior_count=float(c["spread_prior_count"]),
+            spread_floor_fraction=float(c["spread_floor_fraction"]),
+            scale_iterations=int(c["scale_iterations"]),
+            max_thickness_ratio=float(c["max_thickness_ratio"]),
+        ).fit(units, names if named else None)
+
+    def name_sequences(self, well: Well, path: np.ndarray, surfaces: list[Surface]
+                       ) -> tuple[list[Surface], list[str], list[str]]:
+        """Basin-wide names for a decoded well: (surfaces with ``sequence`` and flags set,
+        per-sample sequence name TOP-DOWN, well-level flags)."""
+        if getattr(self, "correlator_", None) is None or len(path) < 2:
+            return surfaces, [""] * len(path), []
+        units = split_sequences(well.depth, np.asarray(path), well.curves, self.tract_names_,
+                                self.rules_.sb_transitions,
+                                mfs_transitions=self.rules_.mfs_transitions, well=well.name)
+        result = self.correlator_.assign(units, well.name)
+        per_sample_up = np.full(len(path), "", dtype=object)
+        for u, name in zip(units, result.names, strict=True):
+            per_sample_up[u.first_sample:u.first_sample + u.n_samples] = name
+        per_sample = per_sample_up[::-1]
+        depth = well.depth
+        out = []
+        for s in surfaces:
+            # the sample just above the surface belongs to the sequence an MFS lies in; an SB
+            # is named after the sequence above it (the SB at the base of sequence <name>)
+            k = int(np.searchsorted(depth, s.depth))          # first sample below
+            above = per_sample[max(k - 1, 0)]
+            flags = list(s.flags)
+            if not above:
+                flags.append("extra sequence: matches no basin sequence")
+            out.append(replace(s, sequence=str(above), flags=tuple(flags)))
+        return out, list(per_sample), list(result.flags)
+
     def _tract_index_map(self) -> np.ndarray:
         """Map a core-file tract index (scheme order) to the rule-table state index."""
         out = []
@@ -297,6 +358,7 @@ class FaciesPipeline:
         top_outside = dict(sorted(outside.items(), key=lambda kv: -kv[1])[:3])
         table["out_of_range"] = out_flag
         surfaces: list[Any] = []
+        info_flags: list[str] = []
         viol_raw = viol = 0
         if self.tract_model_ is not None and self.sequence_model_ is not None:
             E = tract_evidence_matrix(X.reindex(columns=self.feature_names_), proba,
@@ -316,13 +378,16 @@ class FaciesPipeline:
             table["systems_tract_label"] = names[decoded.path]
             for k, name in enumerate(self.tract_names_):
                 table[f"p_{name}"] = decoded.posterior[:, k]
-            surfaces = decoded.surfaces
+            surfaces, seq_names, seq_flags = self.name_sequences(well, decoded.path,
+                                                                 decoded.surfaces)
+            table["sequence"] = seq_names
+            info_flags = seq_flags
             viol_raw, viol = decoded.violations_raw, decoded.violations
         return WellPrediction(
             well=well, table=table, surfaces=surfaces, model_used=model_name,
             out_of_range_fraction=float(np.mean(out_flag)) if len(out_flag) else 0.0,
             rule_violations_raw=viol_raw, rule_violations=viol,
-            info={"features_missing": missing,
+            info={"features_missing": missing, "sequence_flags": info_flags,
                   "out_of_range_top_features": {k: round(v, 3) for k, v in top_outside.items()}},
         )
 

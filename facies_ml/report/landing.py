@@ -23,7 +23,8 @@ def _window_mean(values: np.ndarray, n: int) -> np.ndarray:
 
 
 def landing_summary(pred: WellPrediction, settings: dict[str, Any]) -> pd.DataFrame:
-    """One row per sequence of one well (sequence 1 = deepest, counted up-section)."""
+    """One row per sequence of one well, named by its basin-wide sequence name (the
+    correlation step); a sequence matching no basin sequence is named "(extra)"."""
     table = pred.table
     depth = table.index.to_numpy(float)
     step = pred.well.step
@@ -49,8 +50,13 @@ def landing_summary(pred: WellPrediction, settings: dict[str, Any]) -> pd.DataFr
         idx = np.flatnonzero(sel)
         if len(idx) == 0:
             continue
+        if "sequence" in table:
+            names = pd.Series(table["sequence"].to_numpy()[idx]).replace("", np.nan).dropna()
+            name = str(names.mode().iloc[0]) if len(names) else "(extra)"
+        else:
+            name = str(n_seq - i)
         row: dict[str, Any] = {
-            "well": pred.well.name, "sequence": n_seq - i,
+            "well": pred.well.name, "sequence": name,
             "top": float(depth[idx[0]]), "base": float(depth[idx[-1]]),
             "gross_target_thickness": float(in_target[idx].sum() * step),
             "mean_organic_proxy_toc_wt_pct": (float(np.nanmean(proxy[idx]))

@@ -74,18 +74,20 @@ def prediction_frame(pred: WellPrediction) -> pd.DataFrame:
 
 def tops_frame(rows: Iterable[tuple[str, str, list[Any]]]) -> pd.DataFrame:
     """One row per surface from ``(well, depth_unit, surfaces)`` triples:
-    well, surface, depth, depth_p10, depth_p90, confidence, gr_check, depth_unit."""
+    well, surface, sequence (basin-wide name), depth, depth_p10, depth_p90, confidence,
+    gr_check, flags ("; "-joined reasons to review the pick, empty when none), depth_unit."""
     out = []
     for well, unit, surfaces in rows:
         for s in surfaces:
             out.append({
-                "well": well, "surface": s.kind, "depth": round(float(s.depth), 3),
+                "well": well, "surface": s.kind, "sequence": getattr(s, "sequence", ""),
+                "depth": round(float(s.depth), 3),
                 "depth_p10": round(float(s.depth_p10), 3), "depth_p90": round(float(s.depth_p90), 3),
                 "confidence": round(float(s.confidence), 3), "gr_check": s.gr_check,
-                "depth_unit": unit,
+                "flags": "; ".join(getattr(s, "flags", ())), "depth_unit": unit,
             })
-    cols = ["well", "surface", "depth", "depth_p10", "depth_p90", "confidence", "gr_check",
-            "depth_unit"]
+    cols = ["well", "surface", "sequence", "depth", "depth_p10", "depth_p90", "confidence",
+            "gr_check", "flags", "depth_unit"]
     return pd.DataFrame(out, columns=cols)
 
 
