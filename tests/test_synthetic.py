@@ -471,24 +471,23 @@ def test_hard_preset_surfaces_inside_the_log(hard: dict) -> None:
 
 
 def test_hard_preset_eroded_sequence_has_no_mfs(hard: dict) -> None:
-    """In the eroded wells the eroded sequence has TST (and LST) only, no MFS in the truth
-    surfaces; the SB above the erosion is the next sequence's SB, and below it lies the
-    eroded sequence's TST."""
+    """In the eroded wells the whole eroded sequence is gone: no sample, no SB and no MFS of
+    it in the truth; the next sequence's SB rests on the late highstand of the one below (an
+    SB transition of the rule table)."""
     eroded = {n: w["eroded_sequences"] for n, w in hard["wells"].items() if w["eroded_sequences"]}
     assert len(eroded) == HARD_CFG["thickness"]["erosion"]["wells"] == 2
     surf = hard["surfaces"]
     for name, (k,) in eroded.items():
         t, s = hard["truth"][name], surf[surf["well"] == name]
-        g = t[t["sequence"] == k]
-        assert len(g) > 0 and set(g["systems_tract"]) <= {"LST", "TST"}, (name, k)
-        assert s.query("surface == 'MFS' and sequence == @k").empty, (name, k)
+        assert (t["sequence"] == k).sum() == 0, (name, k)
+        assert s.query("sequence == @k").empty, (name, k)
         assert len(s.query("surface == 'MFS' and sequence == @k + 1")) == 1
         sb = s.query("surface == 'SB' and sequence == @k + 1")["depth"]
         assert len(sb) == 1
         below = t[t["depth"] > sb.iloc[0]].iloc[0]
         above = t[t["depth"] < sb.iloc[0]].iloc[-1]
-        assert below["sequence"] == k and below["systems_tract"] == "TST"
-        assert above["sequence"] == k + 1
+        assert below["sequence"] == k - 1 and below["systems_tract"] == "LHST"
+        assert above["sequence"] == k + 1 and above["systems_tract"] in ("LST", "TST")
     for name, w in hard["wells"].items():                 # non-eroded wells: every logged
         if name in eroded:                                 # complete sequence has its MFS
             continue

@@ -55,9 +55,10 @@ def well_segments(position: float, history: BasinHistory, sea: dict[str, Any],
     """Deposited tracts of one well, up-section, with lateral thickness change, LST only in
     basinward wells and erosional truncation of the LHST below each SB in proximal wells.
 
-    ``eroded`` = (sequence, kept share of its TST): that sequence loses its whole HST (EHST,
-    LHST, so its MFS) and the upper part of its TST below the next SB. The random draws are the
-    same with or without erosion, so the other wells do not change.
+    ``eroded`` = (sequence, unused): that whole sequence was removed by erosion below the next
+    SB, so the next sequence's LST or TST rests on the late highstand of the one below (an
+    allowed SB transition) and the eroded sequence has neither SB nor MFS in the well. The
+    random draws are the same with or without erosion, so the other wells do not change.
     """
     phases = tract_phases(sea)
     n = len(history.thickness_factor)
@@ -77,10 +78,8 @@ def well_segments(position: float, history: BasinHistory, sea: dict[str, Any],
             rate *= 1.0 + float(thick["lateral_slope"][tract]) * (position - 0.5)
             rate *= 1.0 + float(thick["well_jitter"]) * rng.standard_normal()
             gone = eroded is not None and eroded[0] == k + 1
-            if eroded is not None and gone and tract == "TST":
-                p1 = p0 + float(eroded[1]) * (p1 - p0)
             h = rate * (p1 - p0) * duration * history.thickness_factor[k]
-            if gone and tract in ("EHST", "LHST"):
+            if gone:
                 continue
             segs.append(Segment(k + 1, tract, p0, p1, max(h, 0.0)))
     return segs
