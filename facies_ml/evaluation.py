@@ -88,37 +88,58 @@ def labelled_runs(labels: np.ndarray) -> list[tuple[int, int]]:
     return list(zip(edges[::2], edges[1::2], strict=True))
 
 
-def true_surfaces(depth: np.ndarray, tracts: np.ndarray, rules: Any) -> list[Any]:
-    """Surfaces implied by interpreted tract labels (top-down arrays), per labelled run."""
+def true_surfaces(depth: np.ndarray, tracts: np.ndarray, rules: Any,
+                  names: np.ndarray | None = None) -> list[Any]:
+    """Surfaces implied by interpreted tract labels (top-down arrays), per labelled run, each
+    named after the core file's sequence name of the sample above it (``names``, top-down)."""
+    from dataclasses import replace
+
     out = []
     for start, stop in labelled_runs(tracts):
-        out.extend(pick_surfaces(depth[start:stop][::-1], tracts[start:stop][::-1], rules))
+        for s in pick_surfaces(depth[start:stop][::-1], tracts[start:stop][::-1], rules):
+            name = ""
+            if names is not None:
+                k = start + int(np.searchsorted(depth[start:stop], s.depth))
+                name = str(names[max(k - 1, start)])
+            out.append(replace(s, sequence=name))
     return out
 
 
 def match_surfaces(true: Iterable[Any], pred: Iterable[Any], kind: str, tolerance: float,
-                   depth_range: tuple[float, float] | None = None) -> dict[str, Any]:
-    """Greedy nearest matching of predicted to true surfaces of one kind.
+                   close: float, depth_range: tuple[float, float] | None = None
+                   ) -> dict[str, Any]:
+    """One-to-one matching of predicted to true surfaces of one kind, nearest pairs first,
+    within ``tolerance`` (the rule of ``../shared/tools/score_picks.py``).
 
-    Returns absolute depth errors of matched pairs, and counts of missed (true without a
-    prediction within ``tolerance``) and extra (prediction inside ``depth_range`` without a
-    true surface) surfaces.
+    Returns signed depth errors (predicted - true) of matched pairs, how many true surfaces
+    have a match closer than ``close``, missed (true without a match) and extra (predicted
+    inside ``depth_range`` without a match) counts, how many matched picks have the true depth
+    inside their p10-p90 range, and how many carry the true sequence name (when named).
     """
-    t = sorted(s.depth for s in true if s.kind == kind)
-    p = [s.depth for s in pred if s.kind == kind]
+    t = [s for s in true if s.kind == kind]
+    p = [s for s in pred if s.kind == kind]
     if depth_range is not None:
-        p = [d for d in p if depth_range[0] - tolerance <= d <= depth_range[1] + tolerance]
-    used: set[int] = set()
-    errors, missed = [], 0
-    for d in t:
-        cands = [(abs(d - q), j) for j, q in enumerate(p) if j not in used and abs(d - q) <= tolerance]
-        if not cands:
-            missed += 1
+        p = [s for s in p if depth_range[0] - tolerance <= s.depth <= depth_range[1] + tolerance]
+    pairs = sorted((abs(a.depth - b.depth), i, j) for i, a in enumerate(t)
+                   for j, b in enumerate(p))
+    ti: set[int] = set()
+    pj: set[int] = set()
+    errors, covered, named, name_checked, n_close = [], 0, 0, 0, 0
+    for dist, i, j in pairs:
+        if dist > tolerance or i in ti or j in pj:
             continue
-        err, j = min(cands)
-        used.add(j)
-        errors.append(float(err))
-    return {"errors": errors, "missed": missed, "extra": len(p) - len(used), "n_true": len(t)}
+        ti.add(i)
+        pj.add(j)
+        errors.append(float(p[j].depth - t[i].depth))
+        n_close += dist <= close
+        covered += int(min(p[j].depth_p10, p[j].depth_p90) <= t[i].depth
+                       <= max(p[j].depth_p10, p[j].depth_p90))
+        if t[i].sequence:
+            name_checked += 1
+            named += int(p[j].sequence == t[i].sequence)
+    return {"errors": errors, "missed": len(t) - len(ti), "extra": len(p) - len(pj),
+            "n_true": len(t), "within_close": n_close, "covered": covered,
+            "named_right": named, "name_checked": name_checked}
 
 
 def _median(values: list[float]) -> float | None:
@@ -155,17 +176,24 @@ def score_well(pred: WellPrediction, labels: pd.DataFrame, pipeline: FaciesPipel
             out["systems_tract_accuracy"] = float(accuracy_score(yt[has_t], smoothed[has_t]))
             out["systems_tract_accuracy_raw"] = float(accuracy_score(yt[has_t], raw[has_t]))
             depth = table.index.to_numpy(float)
-            truth = true_surfaces(depth, yt, pipeline.rules_)
+            names = (lab["sequence"].fillna("").astype(str).to_numpy()
+                     if "sequence" in lab else None)
+            truth = true_surfaces(depth, yt, pipeline.rules_, names)
             drange = (float(depth[has_t].min()), float(depth[has_t].max()))
-            tol = float(cfg.section("evaluation").get("surface_match_tolerance", 15.0))
+            ev = cfg.section("evaluation")
+            tol = float(ev["surface_match_tolerance"])
+            close = float(ev["surface_close_tolerance"])
             for kind in ("MFS", "SB"):
-                m = match_surfaces(truth, pred.surfaces, kind, tol, drange)
+                m = match_surfaces(truth, pred.surfaces, kind, tol, close, drange)
                 key = kind.lower()
-                out[f"{key}_depth_error"] = _median(m["errors"])
+                out[f"{key}_depth_error"] = _median([abs(e) for e in m["errors"]])
                 out[f"{key}_errors"] = m["errors"]
-                out[f"{key}_missed"] = m["missed"]
-                out[f"{key}_extra"] = m["extra"]
+                for field in ("missed", "extra", "within_close", "covered", "named_right",
+                              "name_checked"):
+                    out[f"{key}_{field}"] = m[field]
                 out[f"{key}_true_count"] = m["n_true"]
+                out[f"{key}_within_close_share"] = (m["within_close"] / m["n_true"]
+                                                    if m["n_true"] else None)
             target = [pipeline.tract_names_.index(t) for t in ("TST", "EHST")
                       if t in pipeline.tract_names_]
             step = float(np.median(np.diff(depth))) if len(depth) > 1 else cfg.step
@@ -181,11 +209,24 @@ def score_well(pred: WellPrediction, labels: pd.DataFrame, pipeline: FaciesPipel
 def overall_metrics(per_well: dict[str, dict[str, Any]], pooled: dict[str, Any]) -> dict[str, Any]:
     """Pooled sample metrics plus medians/sums of surface errors and violations over wells."""
     out = dict(pooled)
+
+    def total(key: str) -> int:
+        return int(sum(m.get(key) or 0 for m in per_well.values()))
+
     for kind in ("mfs", "sb"):
-        errs = [e for m in per_well.values() for e in m.get(f"{kind}_errors", [])]
+        errs = [abs(e) for m in per_well.values() for e in m.get(f"{kind}_errors", [])]
         out[f"{kind}_depth_error"] = _median(errs)
-        out[f"{kind}_missed"] = int(sum(m.get(f"{kind}_missed", 0) or 0 for m in per_well.values()))
-        out[f"{kind}_extra"] = int(sum(m.get(f"{kind}_extra", 0) or 0 for m in per_well.values()))
+        for field in ("missed", "extra", "within_close", "covered", "named_right",
+                      "name_checked", "true_count"):
+            out[f"{kind}_{field}"] = total(f"{kind}_{field}")
+        n = out[f"{kind}_true_count"]
+        out[f"{kind}_within_close_share"] = out[f"{kind}_within_close"] / n if n else None
+    matched = sum(len(m.get(f"{k}_errors", [])) for m in per_well.values() for k in ("mfs", "sb"))
+    covered = out["mfs_covered"] + out["sb_covered"]
+    checked = out["mfs_name_checked"] + out["sb_name_checked"]
+    out["p10_p90_coverage"] = covered / matched if matched else None
+    out["names_right_share"] = ((out["mfs_named_right"] + out["sb_named_right"]) / checked
+                                if checked else None)
     for key in ("rule_violations", "rule_violations_raw"):
         out[key] = int(sum(m.get(key) or 0 for m in per_well.values()))
     thick = [m["tst_ehst_thickness_error"] for m in per_well.values()
@@ -253,25 +294,48 @@ def leave_one_well_out(
     return metrics, predictions
 
 
+def _share(num: Any, den: Any) -> float | None:
+    return float(num) / float(den) if den else None
+
+
 def format_table(metrics: dict[str, Any]) -> str:
-    """Plain-text per-well table of the headline held-out scores."""
-    cols = [("lithofacies_accuracy", "facies_acc"), ("lithofacies_f1_macro", "facies_F1"),
-            ("systems_tract_accuracy_raw", "tract_raw"), ("systems_tract_accuracy", "tract_hmm"),
-            ("mfs_depth_error", "MFS_err"), ("sb_depth_error", "SB_err"),
-            ("rule_violations_raw", "viol_raw"), ("rule_violations", "viol")]
-    head = f"{'well':<12}" + "".join(f"{short:>11}" for _, short in cols)
+    """Plain-text per-well table of the held-out scores: lithofacies, systems tracts before
+    and after the sequence model, SB and MFS picked within the close tolerance (share of the
+    true surfaces), missed / extra picks, median depth error, p10-p90 coverage of matched
+    picks and the share of matched surfaces given the right sequence name."""
+    cols = [("facies_acc", lambda m: m.get("lithofacies_accuracy")),
+            ("facies_F1", lambda m: m.get("lithofacies_f1_macro")),
+            ("tract_raw", lambda m: m.get("systems_tract_accuracy_raw")),
+            ("tract_hmm", lambda m: m.get("systems_tract_accuracy")),
+            ("MFS_5ft", lambda m: m.get("mfs_within_close_share")),
+            ("MFS_miss", lambda m: m.get("mfs_missed")),
+            ("MFS_extra", lambda m: m.get("mfs_extra")),
+            ("MFS_err", lambda m: m.get("mfs_depth_error")),
+            ("SB_5ft", lambda m: m.get("sb_within_close_share")),
+            ("SB_miss", lambda m: m.get("sb_missed")),
+            ("SB_extra", lambda m: m.get("sb_extra")),
+            ("SB_err", lambda m: m.get("sb_depth_error")),
+            ("p10_p90", lambda m: _share((m.get("mfs_covered") or 0) + (m.get("sb_covered") or 0),
+                                         len(m.get("mfs_errors") or []) + len(m.get("sb_errors") or []))),
+            ("names", lambda m: _share((m.get("mfs_named_right") or 0) + (m.get("sb_named_right") or 0),
+                                       (m.get("mfs_name_checked") or 0) + (m.get("sb_name_checked") or 0))),
+            ("viol", lambda m: m.get("rule_violations"))]
+    head = f"{'well':<12}" + "".join(f"{short:>10}" for short, _ in cols)
     lines = [head, "-" * len(head)]
 
     def fmt(v: Any) -> str:
         if v is None:
-            return f"{'-':>11}"
+            return f"{'-':>10}"
         if isinstance(v, (int, np.integer)):
-            return f"{v:>11d}"
-        return f"{v:>11.3f}"
+            return f"{v:>10d}"
+        return f"{v:>10.3f}"
 
     rows = list(metrics["wells"].items()) + [("OVERALL", metrics["overall"])]
     for name, m in rows:
-        lines.append(f"{name:<12}" + "".join(fmt(m.get(key)) for key, _ in cols))
+        lines.append(f"{name:<12}" + "".join(fmt(get(m)) for _, get in cols))
+    lines.append("5ft: share of true surfaces picked within the close tolerance; err: median "
+                 "|depth error| of matched picks; p10_p90: share of matched picks whose range "
+                 "holds the true depth; names: matched surfaces with the right sequence name.")
     return "\n".join(lines)
 
 
@@ -356,3 +420,81 @@ def rank_core_candidates(predictions: list[WellPrediction], facies_labels: list[
     frame = frame.sort_values("score", ascending=False, kind="stable").reset_index(drop=True)
     frame.insert(0, "rank", np.arange(1, len(frame) + 1))
     return frame
+
+
+def score_tops(tops: pd.DataFrame, truth: pd.DataFrame, tolerance: float, close: float
+               ) -> dict[str, Any]:
+    """Score a tops table against known surfaces (synthetic truth or a geologist's picks).
+
+    ``tops``: well, surface, depth, depth_p10, depth_p90, sequence, depth_unit; ``truth``:
+    well, surface, depth, sequence[, depth_unit]. Depths in metres are converted to feet.
+    Matching as :func:`match_surfaces` (one to one, nearest first, within ``tolerance`` ft);
+    names are scored under the best one-to-one mapping of predicted to true names (the
+    Hungarian method, scipy ``linear_sum_assignment``), since a tool numbering sequences
+    itself may use other labels than the truth. Returns per kind ``true``, ``within_close``
+    (share of true surfaces), ``missed``, ``extra`` (per true surface), ``median_error_ft``,
+    and overall ``coverage`` and ``names``.
+    """
+    from types import SimpleNamespace
+
+    from scipy.optimize import linear_sum_assignment
+
+    def as_ft(frame: pd.DataFrame, cols: list[str]) -> pd.DataFrame:
+        f = frame.copy()
+        unit = (f["depth_unit"].astype(str).str.lower() if "depth_unit" in f
+                else pd.Series("ft", index=f.index))
+        factor = np.where(unit.str.startswith("m"), 1.0 / 0.3048, 1.0)
+        for c in cols:
+            f[c] = pd.to_numeric(f[c], errors="coerce") * factor
+        return f
+
+    tp = as_ft(tops, ["depth", "depth_p10", "depth_p90"])
+    tt = as_ft(truth, ["depth"])
+    res: dict[str, Any] = {}
+    names: list[str] = []
+    trues: list[str] = []
+    cover = matched = 0
+    for kind in ("MFS", "SB"):
+        close_n = total = extra = missed = 0
+        errs: list[float] = []
+        for well in sorted(tt["well"].astype(str).unique()):
+            t = [SimpleNamespace(kind=kind, depth=r.depth, sequence=str(r.sequence))
+                 for r in tt[(tt["well"].astype(str) == well) & (tt["surface"] == kind)]
+                 .itertuples()]
+            p = [SimpleNamespace(kind=kind, depth=r.depth, depth_p10=r.depth_p10,
+                                 depth_p90=r.depth_p90, sequence=str(getattr(r, "sequence", "")))
+                 for r in tp[(tp["well"].astype(str) == well) & (tp["surface"] == kind)]
+                 .itertuples()]
+            m = match_surfaces(t, p, kind, tolerance, close)
+            close_n += m["within_close"]
+            total += m["n_true"]
+            extra += m["extra"]
+            missed += m["missed"]
+            errs += [abs(e) for e in m["errors"]]
+            cover += m["covered"]
+            matched += len(m["errors"])
+            pairs = sorted((abs(a.depth - b.depth), i, j) for i, a in enumerate(t)
+                           for j, b in enumerate(p))
+            ti: set[int] = set()
+            pj: set[int] = set()
+            for dist, i, j in pairs:
+                if dist > tolerance or i in ti or j in pj:
+                    continue
+                ti.add(i)
+                pj.add(j)
+                names.append(p[j].sequence)
+                trues.append(t[i].sequence)
+        res[kind] = {"true": total, "within_close": close_n / total if total else None,
+                     "missed": missed, "extra": extra / total if total else None,
+                     "median_error_ft": float(np.median(errs)) if errs else None}
+    res["coverage"] = cover / matched if matched else None
+    if names:
+        un, ut = sorted(set(names)), sorted(set(trues))
+        c = np.zeros((len(un), len(ut)))
+        for a, b in zip(names, trues, strict=True):
+            c[un.index(a), ut.index(b)] += 1
+        r, k = linear_sum_assignment(-c)
+        res["names"] = float(c[r, k].sum() / len(names))
+    else:
+        res["names"] = None
+    return res

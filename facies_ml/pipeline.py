@@ -221,6 +221,7 @@ class FaciesPipeline:
         self.surface_checks_ = SurfaceChecks(
             mfs_gr_window=float(ch["mfs_gr_window"]), gr_smoothing=float(ch["gr_smoothing"]),
             sb_trend_window=float(ch["sb_trend_window"]),
+            confidence_tolerance=float(ch["confidence_tolerance"]),
             low_confidence=float(ch["low_confidence"]),
             failed_check_confidence=float(ch["failed_check_confidence"]))
 

@@ -9,8 +9,10 @@ is the probability that a run of tract j starts at sample t on top of a run of t
 picked surface of kind K between the middle of the run below and the middle of the run above,
 the probability mass of every K transition at each candidate boundary is a distribution of the
 surface depth: ``depth_p10`` / ``depth_p90`` are its 10th / 90th depth percentiles (shallower /
-deeper, widened to hold the decoded boundary) and ``confidence`` is its total mass, the
-probability that a surface of that kind lies in the window at all.
+deeper, widened to hold the decoded boundary) and ``confidence`` is its mass within
+``confidence_tolerance`` of the pick: the probability that a surface of that kind lies within
+that distance of the reported depth (a pick whose depth is uncertain reports a low confidence,
+even where a surface surely exists somewhere nearby).
 
 Checks (common practice): an MFS lies at the highest GR of its own sequence (between the
 bounding SBs), and at an SB the GR stacking turns from decreasing upward (highstand,
@@ -38,11 +40,12 @@ class SurfaceChecks:
     mfs_gr_window: float             # MFS must lie within this of the sequence's GR maximum
     gr_smoothing: float              # GR moving-average window before the checks
     sb_trend_window: float           # GR trend windows below / above an SB
+    confidence_tolerance: float      # confidence = probability the surface is this close
     low_confidence: float            # picks below this confidence are flagged
     failed_check_confidence: float   # a pick failing a check never reports more
 
     def __post_init__(self) -> None:
-        for name in ("mfs_gr_window", "gr_smoothing", "sb_trend_window"):
+        for name in ("mfs_gr_window", "gr_smoothing", "sb_trend_window", "confidence_tolerance"):
             if not float(getattr(self, name)) > 0:
                 raise InputError(f"sequence.checks.{name} must be > 0")
         for name in ("low_confidence", "failed_check_confidence"):
@@ -162,8 +165,11 @@ def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
             hi = int(starts[r] + (lengths[r] - 1) // 2)
             w = np.arange(max(lo, 1), hi + 1)
             mass = ent[w][:, kind_of == kind].sum(axis=1)
-            conf = float(min(mass.sum(), 1.0))
             zs = 0.5 * (depth[w - 1] + depth[w])
+            tol = chk.confidence_tolerance * (1 + 1e-9) if chk is not None else np.inf
+            near = np.abs(zs - z) <= tol          # 1e-9: a boundary exactly at the tolerance
+            # counts in any depth unit (float error of ft -> m)
+            conf = float(min(mass[near].sum(), 1.0))
             if mass.sum() > 0:
                 p10 = min(_weighted_quantile(zs, mass, 0.1), z)
                 p90 = max(_weighted_quantile(zs, mass, 0.9), z)
