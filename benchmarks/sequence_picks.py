@@ -71,6 +71,7 @@ def run_basin(preset: str, seed: int, folder: Path) -> dict:
                   violations=int(sum(p.rule_violations for p in preds)),
                   train_s=t_train, predict_s=t_pred, failures=failures,
                   evidence_weight=pipe.sequence_model_.params_.evidence_weight,
+                  path_weight=pipe.sequence_model_.params_.path_weight,
                   tops=str(out / "tops.csv"), truth=str(truth_path))
     return scores
 
@@ -89,7 +90,8 @@ def main() -> int:
             for seed in a.seed or [11 if preset == "demo" else 7]:
                 s = run_basin(preset, seed, folder)
                 print(f"\n== {preset} basin, seed {seed}: trained on 5 cored wells, "
-                      f"5 offset wells never seen (evidence weight {s['evidence_weight']:g}; "
+                      f"5 offset wells never seen (evidence weights: path {s['path_weight']:g}, "
+                      f"ranges {s['evidence_weight']:g}; "
                       f"train {s['train_s']:.0f} s, predict {s['predict_s']:.0f} s)")
                 print(f"systems-tract accuracy {s['tract_accuracy']:.3f} (per well "
                       + ", ".join(f"{x:.3f}" for x in s["tract_accuracy_per_well"])

@@ -1,6 +1,9 @@
-"""TractSequenceModel: learning from synthetic up-section sequences and constrained decoding."""
+"""TractSequenceModel: learning from synthetic TOP-DOWN label arrays and constrained
+semi-Markov decoding (up-section), decode_well and weight calibration."""
 
 from __future__ import annotations
+
+from typing import Any
 
 import numpy as np
 import pytest
@@ -8,24 +11,42 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from facies_ml.config import CONFIG_DIR
+from facies_ml.config import CONFIG_DIR, load_config
 from facies_ml.errors import InputError
-from facies_ml.sequence.decode import viterbi
+from facies_ml.sequence.durations import ExplicitDuration
 from facies_ml.sequence.model import TractSequenceModel
+from facies_ml.sequence.reference import reference_viterbi
 from facies_ml.sequence.rules import load_rules
+from facies_ml.sequence.runs import split_runs
+from facies_ml.sequence.surfaces import SurfaceChecks
 
 RULES = load_rules(CONFIG_DIR / "sequence_rules.yaml")
 L, T, E, H = range(4)
 STEP, UNIT = 0.5, "ft"                       # 4 ft minimum -> 8 samples per tract
+MEDIANS = np.array([30.0, 50.0, 80.0, 120.0])  # true median run thickness (samples) per tract
 
 
-def simulate(rng: np.random.Generator, n_runs: int, mean_extra: np.ndarray,
-             p_lhst_to_lst: float) -> np.ndarray:
-    """Up-section tract sequence: LST->TST->EHST->LHST->(LST | TST); run = 8 + geometric."""
+def settings_kwargs(**over: Any) -> dict[str, Any]:
+    """Constructor arguments from configs/default.yaml (sequence:)."""
+    seq = load_config().section("sequence")
+    dur = seq["duration"]
+    kw: dict[str, Any] = dict(duration_model=str(dur["model"]),
+                              prior_count=float(seq["prior_count"]),
+                              duration_prior_runs=float(dur["prior_runs"]),
+                              duration_prior_log_sigma=float(dur["prior_log_sigma"]),
+                              duration_log_sigma_floor=float(dur["log_sigma_floor"]),
+                              evidence_weight=float(seq["evidence_weight"]))
+    kw.update(over)
+    return kw
+
+
+def simulate(rng: np.random.Generator, n_runs: int, p_lhst_to_lst: float) -> np.ndarray:
+    """UP-SECTION tract sequence LST->TST->EHST->LHST->(LST | TST), log-normal thicknesses
+    (median MEDIANS, log sd 0.3), never below 8 samples."""
     seq, k = [], int(rng.integers(0, 4))
     for _ in range(n_runs):
-        extra = rng.geometric(1.0 / (1.0 + mean_extra[k])) - 1     # mean = mean_extra[k]
-        seq.append(np.full(8 + extra, k))
+        d = max(8, int(round(np.exp(rng.normal(np.log(MEDIANS[k]), 0.3)))))
+        seq.append(np.full(d, k))
         if k == H:
             k = L if rng.random() < p_lhst_to_lst else T
         else:
@@ -36,89 +57,91 @@ def simulate(rng: np.random.Generator, n_runs: int, mean_extra: np.ndarray,
 @pytest.fixture(scope="module")
 def fitted() -> TractSequenceModel:
     rng = np.random.default_rng(11)
-    seqs = [simulate(rng, 400, np.array([6.0, 12.0, 20.0, 30.0]), 0.7) for _ in range(5)]
+    seqs = [simulate(rng, 200, 0.7) for _ in range(5)]
     seqs[0][100:140] = -1                    # an uncored stretch splits the sequence
-    return TractSequenceModel(RULES, prior_count=1.0).fit(seqs, step=STEP, depth_unit=UNIT)
+    topdown = [s[::-1].copy() for s in seqs]  # fit takes TOP-DOWN arrays
+    return TractSequenceModel(RULES, **settings_kwargs()).fit(topdown, step=STEP,
+                                                               depth_unit=UNIT)
 
 
 def test_fit_recovers_transition_structure(fitted: TractSequenceModel) -> None:
-    A = fitted.transmat_
-    forbidden = ~RULES.allowed
-    assert (A[forbidden] == 0.0).all()                         # exactly zero, not just small
-    np.testing.assert_allclose(A.sum(axis=1), 1.0)
-    sw = fitted.switch_prob_
+    p = fitted.params_
+    sw = p.switch
+    off_forbidden = ~RULES.allowed
+    assert (sw[off_forbidden] == 0.0).all()                    # exactly zero, not just small
+    assert (np.diag(sw) == 0.0).all()
+    np.testing.assert_allclose(sw.sum(axis=1), 1.0)
     assert sw[L, T] == sw[T, E] == sw[E, H] == 1.0             # single allowed exit
     assert sw[H, L] == pytest.approx(0.7, abs=0.05)            # simulated 70 % LHST -> LST
-    np.testing.assert_array_equal(fitted.min_samples_, [8, 8, 8, 8])
-    np.testing.assert_allclose(fitted.mean_thickness_samples_, [6, 12, 20, 30], rtol=0.15)
-    # self-stay p of a geometric tail with mean x: p = x / (1 + x)
-    x = fitted.mean_thickness_samples_
-    np.testing.assert_allclose(np.diag(A), x / (1 + x))
+    # thickness: read up-section from top-down input, the fitted medians are the simulated ones
+    for dur, med in zip(p.durations, MEDIANS, strict=True):
+        assert isinstance(dur, ExplicitDuration)
+        assert dur.min_samples == 8
+        assert np.exp(dur.log_median) == pytest.approx(med, rel=0.08)
+    np.testing.assert_allclose(p.tract_prior.sum(), 1.0)
+    assert p.step == STEP and p.depth_unit == UNIT
 
 
-def test_fit_rejects_forbidden_transition() -> None:
-    seq = np.array([L] * 10 + [T] * 10 + [L] * 10)
-    with pytest.raises(InputError, match="forbidden up-section transition TST -> LST between "
-                                         "index 19 and 20"):
-        TractSequenceModel(RULES).fit([seq], step=STEP, depth_unit=UNIT)
+def test_fit_reads_topdown_arrays_up_section() -> None:
+    # top-down [TST x 20, LST x 20] is LST below TST: the allowed LST -> TST (up-section)
+    seq = np.array([T] * 20 + [L] * 20)
+    m = TractSequenceModel(RULES, **settings_kwargs()).fit([seq] * 3, step=STEP, depth_unit=UNIT)
+    assert m.params_.start.argmax() == L
+    # the reverse order (top-down LST over TST) is TST -> LST up-section: forbidden
+    with pytest.raises(InputError, match="forbidden up-section transition TST -> LST"):
+        TractSequenceModel(RULES, **settings_kwargs()).fit([seq[::-1].copy()], step=STEP,
+                                                           depth_unit=UNIT)
+
+
+def test_fit_rejects_bad_training_input() -> None:
+    seq = np.array([L] * 10 + [T] * 10 + [L] * 10)              # symmetric: TST -> LST either way
+    with pytest.raises(InputError, match=r"row 20: training sequence #0: forbidden up-section "
+                                         r"transition TST -> LST \(up-section index 19\)"):
+        TractSequenceModel(RULES, **settings_kwargs()).fit([seq], step=STEP, depth_unit=UNIT)
     with pytest.raises(InputError, match="outside -1..3"):
-        TractSequenceModel(RULES).fit([np.array([0, 7])], step=STEP, depth_unit=UNIT)
+        TractSequenceModel(RULES, **settings_kwargs()).fit([np.array([0, 7])], step=STEP,
+                                                           depth_unit=UNIT)
+    with pytest.raises(InputError, match="1-D integer array"):
+        TractSequenceModel(RULES, **settings_kwargs()).fit([np.array([0.0, 1.0])], step=STEP,
+                                                           depth_unit=UNIT)
+    with pytest.raises(InputError, match="sequence.prior_count must be > 0"):
+        TractSequenceModel(RULES, **settings_kwargs(prior_count=0.0)).fit(
+            [seq[:20]], step=STEP, depth_unit=UNIT)
+    with pytest.raises(InputError, match="sequence.duration.model must be one of"):
+        TractSequenceModel(RULES, **settings_kwargs(duration_model="poisson")).fit(
+            [np.array([T] * 10 + [L] * 10)], step=STEP, depth_unit=UNIT)
 
 
-def test_decode_equals_hmmlearn_style_dense_decode_of_expanded_model(fitted) -> None:
-    # Same model as an explicit sub-state HMM decoded by the plain Viterbi (itself checked
-    # against hmmlearn in test_sequence_decode.py): identical collapsed paths.
+def test_decode_equals_reference_decoder(fitted: TractSequenceModel) -> None:
+    # Reference: facies_ml.sequence.reference.reference_viterbi (plain loops, itself checked by
+    # enumeration and against hmmlearn 0.3.3 in test_semimarkov.py) on the model's tables.
     rng = np.random.default_rng(12)
-    ll = rng.normal(size=(1500, 4))
+    ll = rng.normal(size=(120, 4)) * 2.0
     res = fitted.decode(ll)
-    x = fitted.expanded()
-    path, lp = viterbi(x.log_start, x.log_trans, ll[:, x.state_tract], block_size=1500)
-    np.testing.assert_array_equal(res.path, x.state_tract[path])
-    assert res.log_prob == pytest.approx(lp, rel=1e-9)
+    path, lp = reference_viterbi(fitted.params_.tables(ll.shape[0]), ll)
+    np.testing.assert_array_equal(res.path, path)
+    assert res.log_prob == pytest.approx(lp, rel=1e-10)
     np.testing.assert_allclose(res.posterior.sum(axis=1), 1.0)
+    assert res.log_likelihood >= res.log_prob                  # all paths >= the best one
 
 
-def test_decode_posteriors_equal_hmmlearn_on_expanded_model(fitted) -> None:
-    # Reference: hmmlearn 0.3.3 predict_proba on fitted.expanded() (32 sub-states), summed per
-    # tract; T = 5000 samples, emissions sd 4 nats.
-    from hmmlearn.base import BaseHMM
-
-    class Ref(BaseHMM):
-        def _compute_log_likelihood(self, X: np.ndarray) -> np.ndarray:
-            return X
-
-    x = fitted.expanded()
-    ref = Ref(n_components=x.log_start.size, params="", init_params="", implementation="log")
-    ref.startprob_, ref.transmat_ = np.exp(x.log_start), np.exp(x.log_trans)
-    rng = np.random.default_rng(19)
-    ll = rng.normal(size=(5000, 4)) * 4.0
-    post = ref.predict_proba(ll[:, x.state_tract])
-    summed = np.stack([post[:, x.state_tract == k].sum(axis=1) for k in range(4)], axis=1)
-    res = fitted.decode(ll)
-    assert np.abs(res.posterior - summed).max() < 1e-9
-
-
-def _run_lengths(path: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    starts = np.r_[0, np.flatnonzero(np.diff(path)) + 1]
-    return path[starts], np.diff(np.r_[starts, path.size])
-
-
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(ll=arrays(np.float64, st.tuples(st.integers(1, 400), st.just(4)),
+@settings(max_examples=40, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(ll=arrays(np.float64, st.tuples(st.integers(1, 300), st.just(4)),
                  elements=st.floats(-8, 8, allow_nan=False)))
-def test_decoded_path_obeys_rules_and_min_thickness(fitted, ll: np.ndarray) -> None:
+def test_decoded_path_obeys_rules_and_min_thickness(fitted: TractSequenceModel,
+                                                    ll: np.ndarray) -> None:
     res = fitted.decode(ll)
-    assert RULES.count_violations(res.path) == 0
-    tracts, lengths = _run_lengths(res.path)
+    assert RULES.count_violations(res.path) == 0               # forbidden: never decoded
+    _, lengths, _ = split_runs(res.path)
     # first (bottom) and last (top) runs are cut by the log window and may be thinner
-    inner = slice(1, -1)
-    assert (lengths[inner] >= fitted.min_samples_[tracts[inner]]).all()
+    assert (lengths[1:-1] >= 8).all()
     assert np.isfinite(res.log_prob)
 
 
-def test_decoding_repairs_a_noisy_classifier(fitted) -> None:
+def test_decoding_repairs_a_noisy_classifier(fitted: TractSequenceModel) -> None:
     rng = np.random.default_rng(13)
-    truth = simulate(rng, 120, np.array([6.0, 12.0, 20.0, 30.0]), 0.7)
+    truth = simulate(rng, 60, 0.7)
     # noisy classifier: right tract favoured by 1.0 nat, Gaussian noise sd 1.0
     ll = rng.normal(size=(truth.size, 4))
     ll[np.arange(truth.size), truth] += 1.0
@@ -130,12 +153,75 @@ def test_decoding_repairs_a_noisy_classifier(fitted) -> None:
     assert (res.posterior.argmax(axis=1) == truth).mean() > acc_raw + 0.2
 
 
-def test_decode_input_errors(fitted) -> None:
-    with pytest.raises(InputError, match=r"shape \(T, 4\)"):
+def test_emission_is_weighted_scaled_likelihood(fitted: TractSequenceModel) -> None:
+    # Reference: scaled likelihood p(k|x) / p(k) (Bourlard & Morgan 1994), raised to the weight
+    rng = np.random.default_rng(14)
+    post = rng.dirichlet(np.ones(4), size=50)
+    prior = fitted.params_.tract_prior
+    w = fitted.params_.evidence_weight
+    np.testing.assert_allclose(fitted.emission(post), w * np.log(post / prior), rtol=1e-12)
+    np.testing.assert_allclose(fitted.emission(post, weight=1.0), np.log(post / prior))
+
+
+def test_decode_well_is_topdown_and_picks_surfaces(fitted: TractSequenceModel) -> None:
+    rng = np.random.default_rng(15)
+    up = simulate(rng, 12, 0.7)                               # truth, up-section
+    post_up = np.full((up.size, 4), 0.05)
+    post_up[np.arange(up.size), up] = 0.85
+    post_top = post_up[::-1].copy()
+    depth_top = 9000.0 + STEP * np.arange(up.size)            # increasing downward
+    chk = SurfaceChecks(**load_config().section("sequence")["checks"])
+    ws = fitted.decode_well(post_top, depth_top, None, chk)
+    ref = fitted.decode(fitted.emission(post_up))
+    np.testing.assert_array_equal(ws.path, ref.path[::-1])     # returned TOP-DOWN
+    np.testing.assert_allclose(ws.posterior, ref.posterior[::-1])
+    np.testing.assert_array_equal(ws.path, up[::-1])          # clear evidence: the truth
+    assert ws.violations == 0
+    assert ws.violations_raw == RULES.count_violations(post_up.argmax(axis=1))
+    # surfaces deepest first, one per SB / MFS transition of the truth
+    depths = [s.depth for s in ws.surfaces]
+    assert depths == sorted(depths, reverse=True)
+    starts, _, tr = split_runs(up)
+    kinds = [RULES.surface_kind(int(a), int(b)) for a, b in zip(tr[:-1], tr[1:], strict=True)]
+    assert [s.kind for s in ws.surfaces] == [k for k in kinds if k]
+    for s in ws.surfaces:
+        assert s.depth_p10 <= s.depth <= s.depth_p90
+        assert 0.0 <= s.confidence <= 1.0
+        assert s.gr_check is None                             # no GR given
+
+
+def test_calibrate_weight_picks_best_mean_log_score(fitted: TractSequenceModel) -> None:
+    rng = np.random.default_rng(16)
+    posts, labs = [], []
+    for _ in range(2):
+        up = simulate(rng, 10, 0.7)
+        post = rng.dirichlet(np.ones(4), size=up.size) * 0.5
+        post[np.arange(up.size), up] += 0.5
+        posts.append(post[::-1].copy())
+        labs.append(up[::-1].copy())
+    model = TractSequenceModel(RULES, **settings_kwargs()).fit(
+        [simulate(np.random.default_rng(s), 60, 0.7)[::-1].copy() for s in range(3)],
+        step=STEP, depth_unit=UNIT)
+    grid = [float(w) for w in load_config().section("sequence")["evidence_weight_grid"]]
+    rows = model.calibrate_weight(posts, labs, grid)
+    assert [r["evidence_weight"] for r in rows] == grid
+    best = max(rows, key=lambda r: r["mean_log_score"])
+    assert model.params_.evidence_weight == best["evidence_weight"]
+    assert all(r["mean_log_score"] <= 0.0 for r in rows)        # mean log of probabilities
+    with pytest.raises(InputError, match="evidence_weight_grid is empty"):
+        model.calibrate_weight(posts, labs, [])
+
+
+def test_decode_input_errors(fitted: TractSequenceModel) -> None:
+    with pytest.raises(InputError, match=r"shape \(T, 4\) for tracts LST, TST, EHST, LHST"):
         fitted.decode(np.zeros((10, 3)))
     bad = np.zeros((10, 4))
     bad[3, 2] = np.inf
-    with pytest.raises(InputError, match="row 3"):
+    with pytest.raises(InputError, match="row 3: emission log-likelihood is not finite"):
         fitted.decode(bad)
+    with pytest.raises(InputError, match="empty sequence"):
+        fitted.decode(np.zeros((0, 4)))
     with pytest.raises(InputError, match="not fitted"):
-        TractSequenceModel(RULES).decode(np.zeros((5, 4)))
+        TractSequenceModel(RULES, **settings_kwargs()).decode(np.zeros((5, 4)))
+    with pytest.raises(InputError, match=r"tract posteriors must have shape \(T, 4\)"):
+        fitted.emission(np.zeros((5, 2)))

@@ -14,7 +14,7 @@ posterior far too sharp; the weight is calibrated on held-out wells, see
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -37,7 +37,8 @@ class SequenceParameters:
     ``start (n,)``: tract the log starts in (at its base); ``switch (n, n)``: next tract up-section
     given a change, zero where the rules forbid it; ``durations``: one thickness model per
     tract (samples of ``step`` ``depth_unit``); ``tract_prior (n,)``: training share of each
-    tract; ``evidence_weight``: exponent on the scaled likelihoods.
+    tract; ``evidence_weight``: exponent on the scaled likelihoods for the posteriors (ranges,
+    confidence); ``path_weight``: the exponent for the decoded path (Viterbi).
     """
 
     states: tuple[str, ...]
@@ -46,6 +47,7 @@ class SequenceParameters:
     durations: tuple[DurationModel, ...]
     tract_prior: np.ndarray
     evidence_weight: float
+    path_weight: float
     step: float
     depth_unit: str
 
@@ -61,8 +63,10 @@ class SequenceParameters:
                 raise InputError(f"sequence parameters: {name} must be finite and >= 0")
         if np.diag(self.switch).any():
             raise InputError("sequence parameters: switch must be zero on the diagonal")
-        if not (np.isfinite(self.evidence_weight) and self.evidence_weight > 0):
-            raise InputError(f"sequence.evidence_weight must be > 0, not {self.evidence_weight}")
+        for name in ("evidence_weight", "path_weight"):
+            v = float(getattr(self, name))
+            if not (np.isfinite(v) and v > 0):
+                raise InputError(f"sequence {name} must be > 0, not {v}")
         if not self.step > 0:
             raise InputError(f"sequence parameters: step must be > 0, not {self.step}")
 
@@ -183,7 +187,8 @@ class TractSequenceModel:
             states=tuple(rules.states), start=(start_c + pc) / (start_c + pc).sum(),
             switch=counts / counts.sum(axis=1, keepdims=True), durations=tuple(durations),
             tract_prior=(share + 1.0) / (share + 1.0).sum(),
-            evidence_weight=float(self.evidence_weight), step=float(step),
+            evidence_weight=float(self.evidence_weight),
+            path_weight=float(self.evidence_weight), step=float(step),
             depth_unit=str(depth_unit))
         return self
 
@@ -204,8 +209,10 @@ class TractSequenceModel:
         return w * (np.log(np.clip(post, 1e-9, 1.0)) - np.log(p.tract_prior)[None, :])
 
     # ------------------------------------------------------------------ decoding
-    def decode(self, log_emit_upsection: np.ndarray, posteriors: bool = True) -> DecodeResult:
-        """Decode (T, n) emission log-likelihoods given UP-SECTION; result up-section."""
+    def decode(self, log_emit_upsection: np.ndarray, posteriors: bool = True,
+               path_scale: float = 1.0) -> DecodeResult:
+        """Decode (T, n) emission log-likelihoods given UP-SECTION; result up-section. The
+        Viterbi path uses the emissions times ``path_scale``, the posteriors the emissions."""
         p = self._check_fitted()
         e = np.asarray(log_emit_upsection, dtype=float)
         n = len(p.states)
@@ -213,7 +220,7 @@ class TractSequenceModel:
             raise InputError(f"log-likelihoods must have shape (T, {n}) for tracts "
                              f"{', '.join(p.states)}; got {e.shape}")
         tables = p.tables(e.shape[0])
-        path, log_prob = viterbi_semimarkov(tables, e)
+        path, log_prob = viterbi_semimarkov(tables, e * path_scale)
         if not posteriors:
             return DecodeResult(path, np.eye(n)[path], None, log_prob, float("nan"))
         fb = forward_backward_semimarkov(tables, e)
@@ -225,7 +232,8 @@ class TractSequenceModel:
         """Decode one well given TOP-DOWN tract posteriors and depths; pick its surfaces."""
         post = np.asarray(tract_posterior_topdown, dtype=float)
         up = slice(None, None, -1)
-        res = self.decode(self.emission(post)[up])
+        p = self._check_fitted()
+        res = self.decode(self.emission(post)[up], path_scale=p.path_weight / p.evidence_weight)
         gr = None if gr_topdown is None else np.asarray(gr_topdown, dtype=float)[up]
         surfaces = pick_surfaces(np.asarray(depth_topdown, dtype=float)[up], res.path,
                                  self.rules, entry=res.entry, gr=gr, checks=checks)
@@ -238,32 +246,35 @@ class TractSequenceModel:
     def calibrate_weight(self, posteriors_topdown: list[np.ndarray],
                          labels_topdown: list[np.ndarray], grid: list[float]
                          ) -> list[dict[str, float]]:
-        """Choose ``evidence_weight`` from ``grid`` by the mean log posterior probability of the
-        true tract (a proper score, Gneiting & Raftery 2007) on held-out tract posteriors
-        (wells the evidence model did not see); sets ``params_.evidence_weight`` and returns
-        the score per weight."""
+        """Choose both evidence weights from ``grid`` on held-out tract posteriors (wells the
+        evidence model did not see): ``path_weight`` by the held-out accuracy of the decoded
+        path, ``evidence_weight`` by the mean log posterior probability of the true tract (a
+        proper score, Gneiting & Raftery 2007, so the ranges are calibrated). Sets both in
+        ``params_`` and returns the scores per weight."""
         p = self._check_fitted()
         if not grid:
             raise InputError("sequence.evidence_weight_grid is empty")
         rows = []
         for w in grid:
-            tot, count = 0.0, 0
+            tot, count, right = 0.0, 0, 0
             for post, lab in zip(posteriors_topdown, labels_topdown, strict=True):
                 lab = np.asarray(lab)
                 ok = lab >= 0
                 if ok.sum() < 2:
                     continue
                 e = self.emission(np.asarray(post)[ok], weight=w)[::-1]
-                occ = self.decode(e).posterior[::-1]
-                tot += float(np.log(np.clip(occ[np.arange(ok.sum()), lab[ok]], 1e-6, 1.0)).sum())
+                res = self.decode(e)
+                truth = lab[ok][::-1]
+                tot += float(np.log(np.clip(res.posterior[np.arange(truth.size), truth],
+                                            1e-6, 1.0)).sum())
+                right += int((res.path == truth).sum())
                 count += int(ok.sum())
             rows.append({"evidence_weight": float(w),
-                         "mean_log_score": tot / count if count else float("nan")})
+                         "mean_log_score": tot / count if count else float("nan"),
+                         "path_accuracy": right / count if count else float("nan")})
         scored = [r for r in rows if np.isfinite(r["mean_log_score"])]
         if scored:
             best = max(scored, key=lambda r: r["mean_log_score"])["evidence_weight"]
-            self.params_ = SequenceParameters(
-                states=p.states, start=p.start, switch=p.switch, durations=p.durations,
-                tract_prior=p.tract_prior, evidence_weight=best, step=p.step,
-                depth_unit=p.depth_unit)
+            best_path = max(scored, key=lambda r: r["path_accuracy"])["evidence_weight"]
+            self.params_ = replace(p, evidence_weight=best, path_weight=best_path)
         return rows
