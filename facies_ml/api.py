@@ -123,7 +123,7 @@ def train(wells_path: str | Path, core_path: str | Path, model_dir: str | Path,
 def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
             version: str | None = None, n_jobs: int = 1, scheduler: str | None = None,
             plots: bool = False, progress: bool = True, panel_wells: list[str] | None = None,
-            datum_mfs: int | None = None) -> dict[str, Any]:
+            datum_mfs: str | None = None) -> dict[str, Any]:
     """Predict every well under ``wells_path`` with the champion (or ``version``).
 
     One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason.
@@ -134,15 +134,19 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
 
     The correlation panel (and the sections embedded in the report) show ``panel_wells`` in
     that order, else the wells of the first ``report.panel_max_wells`` files; the panel is hung
-    on each well's ``datum_mfs``-th MFS counted from the top (default ``report.datum_mfs``).
+    on the MFS of basin-wide sequence ``datum_mfs`` (default ``report.datum_sequence``; null =
+    the named MFS most panel wells share).
     Only those wells' predictions are held in memory.
     """
     pipe, manifest = load_version(model_dir, version)
     out_dir = Path(out_dir)
     report = pipe.config.section("report")
-    datum = int(datum_mfs if datum_mfs is not None else report.get("datum_mfs", 1))
-    if datum < 1:
-        raise InputError(f"the datum MFS is counted from the top starting at 1, not {datum}")
+    datum = datum_mfs if datum_mfs is not None else report["datum_sequence"]
+    correlator = getattr(pipe, "correlator_", None)
+    known = list(getattr(correlator, "sequence_names_", []))
+    if datum is not None and str(datum) not in known:
+        raise InputError(f"datum MFS {datum!r} is not a basin sequence of this model (known: "
+                         f"{', '.join(known) or 'none'})")
     files = list_well_files(wells_path)
     keep: bool | frozenset[str] = False
     if plots:
@@ -160,7 +164,7 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
         summary["panel_wells_not_predicted"] = [w for w in panel_wells if w not in by_name]
         preds = [by_name[w] for w in panel_wells if w in by_name]
     if plots and preds:
-        summary["figures"] = write_figures(pipe, preds, out_dir, datum_index=datum - 1,
+        summary["figures"] = write_figures(pipe, preds, out_dir, datum=datum,
                                            sections_drawn=True,
                                            n_wells_total=len(summary["wells"]))
     write_json(out_dir / "summary.json", summary)
@@ -190,10 +194,11 @@ def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, An
 def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Path,
                   core_labels: dict[str, pd.DataFrame] | None = None,
                   extra_sections: list[tuple[str, list[str]]] | None = None,
-                  datum_index: int = 0, sections_drawn: bool = False,
+                  datum: str | None = None, sections_drawn: bool = False,
                   n_wells_total: int | None = None) -> dict[str, str]:
     """Well sections of ``preds`` (drawn here unless ``sections_drawn``), one correlation panel
-    of ``preds`` hung on their ``datum_index``-th MFS from the top, and the self-contained
+    of ``preds`` hung on the MFS of sequence ``datum`` (None: the one most wells share), and
+    the self-contained
     report.html embedding them (``n_wells_total``: wells predicted in all, for its notes)."""
     from facies_ml.report.html import image_tag, table_html, write_report
     from facies_ml.report.plots import Style, correlation_panel
@@ -217,7 +222,7 @@ def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Pa
         well_imgs.insert(0, f"<p>{others} more well sections are in <code>figures/</code>; "
                             "the report embeds the panel wells only.</p>")
     panel = correlation_panel(preds, tracts, style, fig_dir / "correlation_panel.png",
-                              datum_index=datum_index)
+                              datum=datum)
     figures["correlation_panel"] = str(panel)
     landing = pd.concat([landing_summary(p, cfg.section("landing")) for p in preds],
                         ignore_index=True)

@@ -69,8 +69,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also draw a well section per well, a correlation panel and report.html")
     p.add_argument("--panel-wells", help="comma-separated wells for the correlation panel, in "
                    "order (default: the first report.panel_max_wells files)")
-    p.add_argument("--datum-mfs", type=int, help="hang the panel on this MFS, counted from the "
-                   "top of each well (default report.datum_mfs = 1)")
+    p.add_argument("--datum-mfs", help="hang the panel on the MFS of this basin-wide sequence "
+                   "name, e.g. S3 (default report.datum_sequence; none = the MFS most wells share)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
 
     p = sub.add_parser("retrain", help="champion/challenger retrain with new cored wells")

@@ -102,7 +102,7 @@ def read_core_intervals(path: str | Path, scheme: FaciesScheme,
                      "systems_tract": st, "sequence": "" if _blank(seq) else str(seq).strip(),
                      "lithofacies_label": scheme.labels[litho] if litho >= 0 else "", "row": i})
     out = pd.DataFrame(rows, columns=["well", "top", "base", "lithofacies", "systems_tract",
-                                      "sequence", "lithofacies_label", "row"])
+                                      "lithofacies_label", "sequence", "row"])
     if out.empty:
         raise InputError("no core intervals", file=src)
     for well, g in out.sort_values(["well", "top", "base"], kind="mergesort").groupby("well"):

@@ -24,5 +24,6 @@ def tiny_basin(tmp_path_factory) -> Path:
 def fast_config(tmp_path_factory) -> Path:
     """Project settings with fewer boosting rounds so end-to-end tests stay quick."""
     path = tmp_path_factory.mktemp("cfg") / "fast.yaml"
-    path.write_text("lithofacies:\n  n_estimators: 60\n  early_stopping_rounds: 15\n")
+    path.write_text("lithofacies:\n  n_estimators: 60\n  early_stopping_rounds: 15\n"
+                    "sequence:\n  evidence_weight_grid: [0.01, 0.05]\n")
     return path

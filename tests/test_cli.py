@@ -101,7 +101,7 @@ def test_predict_panel_wells_and_datum(trained, tiny_basin, tmp_path, capsys):
     out = tmp_path / "pred"
     wells = sorted(p.stem for p in tiny_basin.glob("*.las"))
     rc = main(["predict", "--model-dir", str(trained), "--wells", str(tiny_basin),
-               "--out", str(out), "--no-progress", "--plots", "--datum-mfs", "2",
+               "--out", str(out), "--no-progress", "--plots", "--datum-mfs", "S3",
                "--panel-wells", f"{wells[2]},QM-NOWHERE,{wells[0]}"])
     assert rc == 0
     assert "QM-NOWHERE" in capsys.readouterr().out
@@ -114,9 +114,9 @@ def test_predict_panel_wells_and_datum(trained, tiny_basin, tmp_path, capsys):
     summary = json.loads((out / "summary.json").read_text())
     assert summary["panel_wells_not_predicted"] == ["QM-NOWHERE"]
     rc = main(["predict", "--model-dir", str(trained), "--wells", str(tiny_basin),
-               "--out", str(tmp_path / "bad"), "--no-progress", "--plots", "--datum-mfs", "0"])
+               "--out", str(tmp_path / "bad"), "--no-progress", "--plots", "--datum-mfs", "S99"])
     assert rc == 2
-    assert "datum MFS" in capsys.readouterr().err
+    assert "datum MFS 'S99' is not a basin sequence" in capsys.readouterr().err
 
 
 def test_predict_one_bad_file_does_not_abort(trained, tiny_basin, tmp_path, capsys):

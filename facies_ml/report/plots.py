@@ -158,38 +158,79 @@ def well_section(pred: WellPrediction, facies_labels: list[str], tract_names: li
     return _save(fig, path, style)
 
 
+def _panel_datum(preds: list[WellPrediction], datum: str | None) -> str | None:
+    """The sequence whose MFS hangs the panel: ``datum`` or, when None, the named MFS that
+    most panel wells have (the deepest of equals)."""
+    if datum:
+        return datum
+    counts: dict[str, int] = {}
+    depth_rank: dict[str, float] = {}
+    for p in preds:
+        for s in p.surfaces:
+            if s.kind == "MFS" and s.sequence:
+                counts[s.sequence] = counts.get(s.sequence, 0) + 1
+                depth_rank[s.sequence] = max(depth_rank.get(s.sequence, -np.inf), s.depth)
+    if not counts:
+        return None
+    return max(counts, key=lambda k: (counts[k], depth_rank[k]))
+
+
 def correlation_panel(preds: list[WellPrediction], tract_names: list[str], style: Style,
-                      path: str | Path, datum_index: int = 0) -> Path:
-    """Wells side by side, hung on an MFS: depth relative to each well's ``datum_index``-th MFS
-    counted from the top (wells without that MFS are hung on their top and marked)."""
+                      path: str | Path, datum: str | None = None) -> Path:
+    """Wells side by side, hung on the MFS of basin-wide sequence ``datum`` (depth relative to
+    it; None = the named MFS most wells share). Tie lines join the same named surface in
+    neighbouring wells; a well without the datum MFS is hung on its top and marked."""
+    from matplotlib.patches import ConnectionPatch
+
     n = max(1, len(preds))
-    fig, axes = plt.subplots(1, n, figsize=(1.8 * n + 1, 9), sharey=True, squeeze=False)
+    fig, axes = plt.subplots(1, n, figsize=(1.9 * n + 1, 9), sharey=True, squeeze=False)
     tcols = [style.colour(style.tracts, t, i) for i, t in enumerate(tract_names)]
+    name = _panel_datum(preds, datum)
+    named: list[dict[tuple[str, str], float]] = []
     for ax, pred in zip(axes[0], preds, strict=False):
         table = pred.table
         depth = table.index.to_numpy(float)
-        mfs = sorted(s.depth for s in pred.surfaces if s.kind == "MFS")
-        datum = mfs[datum_index] if len(mfs) > datum_index else float(depth.min())
-        rel = depth - datum
+        hit = [s.depth for s in pred.surfaces if s.kind == "MFS" and s.sequence == name]
+        ref = hit[0] if hit else float(depth.min())
+        rel = depth - ref
         if "systems_tract" in table:
             _column(ax, rel, table["systems_tract"].to_numpy(int), tcols)
         if "gr_api" in pred.well.curves:
             gr = pred.well.curves["gr_api"].to_numpy(float)
-            lo, hi = np.nanpercentile(gr, [1, 99]) if np.isfinite(gr).any() else (0, 1)
-            ax.plot((gr - lo) / max(hi - lo, 1e-6), rel, color="#222222", lw=0.5)
+            ax.plot(np.clip(gr, 0, 200) / 200.0, rel, color="#222222", lw=0.5)
+        mine: dict[tuple[str, str], float] = {}
         for s in pred.surfaces:
-            ax.axhline(s.depth - datum, color=style.surfaces.get(s.kind, "#000"), lw=0.9)
+            y = s.depth - ref
+            ax.axhline(y, color=style.surfaces.get(s.kind, "#000"), lw=1.2 if s.sequence else 0.6,
+                       ls="-" if not s.flags else "--")
+            if s.sequence:
+                mine[(s.kind, s.sequence)] = y
+                ax.text(0.98, y, f"{s.kind} {s.sequence}", fontsize=6, ha="right", va="bottom",
+                        color=style.surfaces.get(s.kind, "#000"))
+        named.append(mine)
         ax.set_xlim(0, 1)
-        ax.set_title(pred.well.name + ("" if len(mfs) > datum_index else "\n(no datum MFS)"),
+        ax.set_xticks([0, 0.5, 1], ["0", "100", "200"], fontsize=6)
+        ax.set_xlabel("GR (API)", fontsize=7)
+        ax.set_title(pred.well.name + ("" if hit else "\n(no datum MFS: hung on top)"),
                      fontsize=8)
+    for k in range(len(preds) - 1):             # tie lines between neighbouring wells
+        for key, y in named[k].items():
+            if key in named[k + 1]:
+                fig.add_artist(ConnectionPatch(
+                    xyA=(1, y), coordsA=axes[0][k].transData, xyB=(0, named[k + 1][key]),
+                    coordsB=axes[0][k + 1].transData, color=style.surfaces.get(key[0], "#000"),
+                    lw=0.8, ls=":"))
     axes[0][0].invert_yaxis()
-    axes[0][0].set_ylabel(f"depth relative to MFS #{datum_index + 1} from top "
-                          f"({preds[0].well.depth_unit if preds else ''})")
+    unit = preds[0].well.depth_unit if preds else ""
+    axes[0][0].set_ylabel(f"depth relative to MFS {name} ({unit})" if name
+                          else f"depth below the top of each well ({unit})")
     handles = [Patch(color=tcols[i], label=t) for i, t in enumerate(tract_names)]
     fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=7)
-    fig.suptitle("Correlation panel hung on a predicted MFS (GR overlay, normalized)", fontsize=10)
+    fig.suptitle("Correlation panel hung on " + (f"MFS {name}" if name else "the well tops")
+                 + "; dotted tie lines join the same named surface; dashed = flagged pick",
+                 fontsize=9)
     fig.text(0.5, 0.03, FOOTER, ha="center", fontsize=7, style="italic")
-    fig.subplots_adjust(bottom=0.1, top=0.9, wspace=0.1)
+    fig.subplots_adjust(bottom=0.1, top=0.92, wspace=0.25)
     return _save(fig, path, style)
 
 
