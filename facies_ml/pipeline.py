@@ -153,12 +153,13 @@ class FaciesPipeline:
         out = []
         for k, X in enumerate(frames):
             others = [j for j in labelled if j != k]
-            if not others:
+            yo = (np.concatenate([y_facies[j] for j in others]) if others
+                  else np.zeros(0, dtype=int))
+            if np.unique(yo[yo >= 0]).size < 2:       # nothing to learn from without this well
                 model = self.facies_model_
             else:
                 Xo = pd.concat([frames[j] for j in others], ignore_index=True).reindex(
                     columns=keep)
-                yo = np.concatenate([y_facies[j] for j in others])
                 go = np.concatenate([np.full(len(frames[j]), j) for j in others])
                 ok = yo >= 0
                 model = LithofaciesClassifier(**params).fit(Xo[ok], yo[ok], groups=go[ok],
@@ -211,12 +212,15 @@ class FaciesPipeline:
         if len(wells_t) >= 2 and len(seq["evidence_weight_grid"]) > 1:
             for k in wells_t:
                 tr = (g != k) & has_t
+                if np.unique(yt[tr]).size < 2:        # the other wells show one tract only
+                    continue
                 m = LithofaciesClassifier(**tract_params).fit(
                     E_all[tr], yt[tr], groups=g[tr], n_classes=n_tracts)
                 held_post.append(m.predict_proba(evid[k].reindex(columns=m.feature_names_in_)))
                 held_lab.append(y_states[k])
-            self.evidence_calibration_ = self.sequence_model_.calibrate_weight(
-                held_post, held_lab, [float(w) for w in seq["evidence_weight_grid"]])
+            if held_post:
+                self.evidence_calibration_ = self.sequence_model_.calibrate_weight(
+                    held_post, held_lab, [float(w) for w in seq["evidence_weight_grid"]])
         ch = seq["checks"]
         self.surface_checks_ = SurfaceChecks(
             mfs_gr_window=float(ch["mfs_gr_window"]), gr_smoothing=float(ch["gr_smoothing"]),

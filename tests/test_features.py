@@ -127,7 +127,7 @@ def test_upsection_slope_matches_numpy_polyfit() -> None:
 
 def test_build_features_columns_direction_and_missing_roles() -> None:
     c = _curves()
-    X = build_features(c, 0.5, SETTINGS)
+    X = build_features(c, 0.5, dict(SETTINGS, include_relative_position=True))
     assert X.index.equals(c.index)
     for col in ("gr_api", "log10_rt", "igr", "vsh_larionov_older", "gr_api_mean_w5",
                 "gr_api_upslope_w10", "delta_log_r_sonic", "toc_passey_density",
