@@ -208,7 +208,7 @@ class FaciesPipeline:
         ).fit(y_states, step=step, depth_unit=cfg.working_unit)
         # held-out tract posteriors of each training well -> evidence weight
         wells_t = [k for k, y in enumerate(y_states) if (y >= 0).any()]
-        held_post, held_lab = [], []
+        held_post, held_lab, held_depth = [], [], []
         if len(wells_t) >= 2 and len(seq["evidence_weight_grid"]) > 1:
             for k in wells_t:
                 tr = (g != k) & has_t
@@ -218,14 +218,19 @@ class FaciesPipeline:
                     E_all[tr], yt[tr], groups=g[tr], n_classes=n_tracts)
                 held_post.append(m.predict_proba(evid[k].reindex(columns=m.feature_names_in_)))
                 held_lab.append(y_states[k])
+                held_depth.append(frames[k].index.to_numpy(float))
             if held_post:
                 self.evidence_calibration_ = self.sequence_model_.calibrate_weight(
-                    held_post, held_lab, [float(w) for w in seq["evidence_weight_grid"]])
+                    held_post, held_lab, held_depth,
+                    [float(w) for w in seq["evidence_weight_grid"]],
+                    target_coverage=float(seq["target_coverage"]),
+                    match_tolerance=float(cfg.section("evaluation")["surface_match_tolerance"]))
         ch = seq["checks"]
         self.surface_checks_ = SurfaceChecks(
             mfs_gr_window=float(ch["mfs_gr_window"]), gr_smoothing=float(ch["gr_smoothing"]),
             sb_trend_window=float(ch["sb_trend_window"]),
             confidence_tolerance=float(ch["confidence_tolerance"]),
+            depth_from=str(ch["depth_from"]),
             low_confidence=float(ch["low_confidence"]),
             failed_check_confidence=float(ch["failed_check_confidence"]))
 

@@ -190,26 +190,35 @@ def test_decode_well_is_topdown_and_picks_surfaces(fitted: TractSequenceModel) -
         assert s.gr_check is None                             # no GR given
 
 
-def test_calibrate_weight_picks_best_mean_log_score(fitted: TractSequenceModel) -> None:
+def test_calibrate_weight_path_by_accuracy_ranges_by_coverage(fitted: TractSequenceModel) -> None:
     rng = np.random.default_rng(16)
-    posts, labs = [], []
+    posts, labs, depths = [], [], []
     for _ in range(2):
         up = simulate(rng, 10, 0.7)
         post = rng.dirichlet(np.ones(4), size=up.size) * 0.5
         post[np.arange(up.size), up] += 0.5
         posts.append(post[::-1].copy())
         labs.append(up[::-1].copy())
+        depths.append(5000.0 + STEP * np.arange(up.size))      # top-down, ft
     model = TractSequenceModel(RULES, **settings_kwargs()).fit(
         [simulate(np.random.default_rng(s), 60, 0.7)[::-1].copy() for s in range(3)],
         step=STEP, depth_unit=UNIT)
-    grid = [float(w) for w in load_config().section("sequence")["evidence_weight_grid"]]
-    rows = model.calibrate_weight(posts, labs, grid)
+    seq = load_config().section("sequence")
+    grid = [float(w) for w in seq["evidence_weight_grid"]]
+    target = float(seq["target_coverage"])
+    rows = model.calibrate_weight(posts, labs, depths, grid, target, match_tolerance=15.0)
     assert [r["evidence_weight"] for r in rows] == grid
-    best = max(rows, key=lambda r: r["mean_log_score"])
-    assert model.params_.evidence_weight == best["evidence_weight"]
+    best_path = max(rows, key=lambda r: r["path_accuracy"])
+    assert model.params_.path_weight == best_path["evidence_weight"]
+    gap = min(abs(r["coverage"] - target) for r in rows)
+    chosen = next(r for r in rows if r["evidence_weight"] == model.params_.evidence_weight)
+    assert abs(chosen["coverage"] - target) == gap
     assert all(r["mean_log_score"] <= 0.0 for r in rows)        # mean log of probabilities
+    assert all(0.0 <= r["coverage"] <= 1.0 and 0.0 <= r["path_accuracy"] <= 1.0 for r in rows)
     with pytest.raises(InputError, match="evidence_weight_grid is empty"):
-        model.calibrate_weight(posts, labs, [])
+        model.calibrate_weight(posts, labs, depths, [], target, 15.0)
+    with pytest.raises(InputError, match="target_coverage must lie in"):
+        model.calibrate_weight(posts, labs, depths, grid, 1.5, 15.0)
 
 
 def test_decode_input_errors(fitted: TractSequenceModel) -> None:

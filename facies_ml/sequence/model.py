@@ -244,37 +244,76 @@ class TractSequenceModel:
 
     # ------------------------------------------------------------------ calibration
     def calibrate_weight(self, posteriors_topdown: list[np.ndarray],
-                         labels_topdown: list[np.ndarray], grid: list[float]
+                         labels_topdown: list[np.ndarray], depths_topdown: list[np.ndarray],
+                         grid: list[float], target_coverage: float, match_tolerance: float
                          ) -> list[dict[str, float]]:
         """Choose both evidence weights from ``grid`` on held-out tract posteriors (wells the
-        evidence model did not see): ``path_weight`` by the held-out accuracy of the decoded
-        path, ``evidence_weight`` by the mean log posterior probability of the true tract (a
-        proper score, Gneiting & Raftery 2007, so the ranges are calibrated). Sets both in
-        ``params_`` and returns the scores per weight."""
+        evidence model did not see), with the interpreted tracts ``labels_topdown`` and their
+        depths (working unit, top-down):
+
+        - ``path_weight``: the best held-out accuracy of the decoded path;
+        - ``evidence_weight`` (posteriors, surface ranges, confidence): the share of held-out
+          true surfaces matched within ``match_tolerance`` whose p10-p90 range holds the true
+          depth comes closest to ``target_coverage`` (ties: the better mean log posterior of
+          the true tract, a proper score, Gneiting & Raftery 2007).
+
+        Sets both in ``params_`` and returns the scores per weight."""
         p = self._check_fitted()
         if not grid:
             raise InputError("sequence.evidence_weight_grid is empty")
+        if not 0.0 < float(target_coverage) < 1.0:
+            raise InputError(f"sequence.target_coverage must lie in (0, 1), not {target_coverage}")
+        wells = []
+        for post, lab, dep in zip(posteriors_topdown, labels_topdown, depths_topdown,
+                                  strict=True):
+            lab = np.asarray(lab)
+            ok = lab >= 0
+            if ok.sum() >= 2:
+                up = slice(None, None, -1)
+                truth = lab[ok][up]
+                depth = np.asarray(dep, dtype=float)[ok][up]
+                wells.append((np.asarray(post)[ok], truth, depth,
+                              pick_surfaces(depth, truth, self.rules)))
+        if not wells:
+            return []
         rows = []
         for w in grid:
-            tot, count, right = 0.0, 0, 0
-            for post, lab in zip(posteriors_topdown, labels_topdown, strict=True):
-                lab = np.asarray(lab)
-                ok = lab >= 0
-                if ok.sum() < 2:
-                    continue
-                e = self.emission(np.asarray(post)[ok], weight=w)[::-1]
-                res = self.decode(e)
-                truth = lab[ok][::-1]
-                tot += float(np.log(np.clip(res.posterior[np.arange(truth.size), truth],
-                                            1e-6, 1.0)).sum())
-                right += int((res.path == truth).sum())
-                count += int(ok.sum())
-            rows.append({"evidence_weight": float(w),
-                         "mean_log_score": tot / count if count else float("nan"),
-                         "path_accuracy": right / count if count else float("nan")})
-        scored = [r for r in rows if np.isfinite(r["mean_log_score"])]
-        if scored:
-            best = max(scored, key=lambda r: r["mean_log_score"])["evidence_weight"]
-            best_path = max(scored, key=lambda r: r["path_accuracy"])["evidence_weight"]
-            self.params_ = replace(p, evidence_weight=best, path_weight=best_path)
+            right = count = 0
+            for post, truth, _, _ in wells:
+                path = self.decode(self.emission(post, weight=w)[::-1], posteriors=False).path
+                right += int((path == truth).sum())
+                count += truth.size
+            rows.append({"evidence_weight": float(w), "path_accuracy": right / count})
+        best_path = max(rows, key=lambda r: r["path_accuracy"])["evidence_weight"]
+        for row in rows:
+            w = row["evidence_weight"]
+            log_score = 0.0
+            covered = matched = 0
+            for post, truth, depth, true_surf in wells:
+                e = self.emission(post, weight=w)[::-1]
+                res = self.decode(e, path_scale=best_path / w)
+                log_score += float(np.log(np.clip(
+                    res.posterior[np.arange(truth.size), truth], 1e-6, 1.0)).sum())
+                picked = pick_surfaces(depth, res.path, self.rules, entry=res.entry)
+                for kind in ("MFS", "SB"):
+                    t = [x for x in true_surf if x.kind == kind]
+                    q = [x for x in picked if x.kind == kind]
+                    pairs = sorted((abs(a.depth - b.depth), i, j) for i, a in enumerate(t)
+                                   for j, b in enumerate(q))
+                    ti: set[int] = set()
+                    qj: set[int] = set()
+                    for dist, i, j in pairs:
+                        if dist > match_tolerance or i in ti or j in qj:
+                            continue
+                        ti.add(i)
+                        qj.add(j)
+                        matched += 1
+                        covered += int(q[j].depth_p10 <= t[i].depth <= q[j].depth_p90)
+            row["mean_log_score"] = log_score / sum(x[1].size for x in wells)
+            row["coverage"] = covered / matched if matched else float("nan")
+        scored = [r for r in rows if np.isfinite(r["coverage"])] or rows
+        best = min(scored, key=lambda r: (abs(r["coverage"] - target_coverage)
+                                          if np.isfinite(r["coverage"]) else 1.0,
+                                          -r["mean_log_score"]))["evidence_weight"]
+        self.params_ = replace(p, evidence_weight=best, path_weight=best_path)
         return rows

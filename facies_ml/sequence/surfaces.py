@@ -43,11 +43,15 @@ class SurfaceChecks:
     confidence_tolerance: float      # confidence = probability the surface is this close
     low_confidence: float            # picks below this confidence are flagged
     failed_check_confidence: float   # a pick failing a check never reports more
+    depth_from: str                  # reported depth: "viterbi" boundary | "posterior_median"
 
     def __post_init__(self) -> None:
         for name in ("mfs_gr_window", "gr_smoothing", "sb_trend_window", "confidence_tolerance"):
             if not float(getattr(self, name)) > 0:
                 raise InputError(f"sequence.checks.{name} must be > 0")
+        if self.depth_from not in ("viterbi", "posterior_median"):
+            raise InputError("sequence.checks.depth_from must be viterbi or posterior_median, "
+                             f"not {self.depth_from!r}")
         for name in ("low_confidence", "failed_check_confidence"):
             if not 0.0 <= float(getattr(self, name)) <= 1.0:
                 raise InputError(f"sequence.checks.{name} must lie in 0..1")
@@ -167,14 +171,16 @@ def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
             mass = ent[w][:, kind_of == kind].sum(axis=1)
             zs = 0.5 * (depth[w - 1] + depth[w])
             tol = chk.confidence_tolerance * (1 + 1e-9) if chk is not None else np.inf
-            near = np.abs(zs - z) <= tol          # 1e-9: a boundary exactly at the tolerance
-            # counts in any depth unit (float error of ft -> m)
-            conf = float(min(mass[near].sum(), 1.0))
+            if mass.sum() > 0 and chk is not None and chk.depth_from == "posterior_median":
+                z = _weighted_quantile(zs, mass, 0.5)
+                note += "; depth = posterior median"
             if mass.sum() > 0:
                 p10 = min(_weighted_quantile(zs, mass, 0.1), z)
                 p90 = max(_weighted_quantile(zs, mass, 0.9), z)
             else:
                 p10 = p90 = z
+            near = np.abs(zs - z) <= tol          # 1e-9: a boundary exactly at the tolerance
+            conf = float(min(mass[near].sum(), 1.0))  # counts in any unit (ft -> m float error)
         gr_check: bool | None = None
         if smooth is not None and chk is not None:
             if kind == "MFS":
