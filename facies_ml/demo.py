@@ -20,6 +20,7 @@ from facies_ml.evaluation import (
     learning_curve,
     leave_one_well_out,
     rank_core_candidates,
+    score_tops,
 )
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.outputs import write_json, write_table
@@ -89,10 +90,12 @@ def evaluation_sections(metrics: dict[str, Any], curve: pd.DataFrame, cfg: Any,
 
     figures = evaluation_figures(metrics, cfg.facies.labels, Style(cfg.path("plot_style")),
                                  out / "evaluation", curve)
-    rows = [{"well": w, **{key: m.get(key) for key in (
-        "lithofacies_accuracy", "lithofacies_f1_macro", "systems_tract_accuracy_raw",
-        "systems_tract_accuracy", "mfs_depth_error", "sb_depth_error", "rule_violations")}}
-        for w, m in metrics["wells"].items()]
+    keys = ("lithofacies_accuracy", "lithofacies_f1_macro", "systems_tract_accuracy_raw",
+            "systems_tract_accuracy", "mfs_within_close_share", "mfs_missed", "mfs_extra",
+            "mfs_depth_error", "sb_within_close_share", "sb_missed", "sb_extra",
+            "sb_depth_error", "p10_p90_coverage", "names_right_share", "rule_violations")
+    rows = [{"well": w, **{key: m.get(key) for key in keys}}
+            for w, m in list(metrics["wells"].items()) + [("OVERALL", metrics["overall"])]]
     return [("Held-out evaluation (leave one well out)",
              [table_html(pd.DataFrame(rows))] + [image_tag(path, caption)
                                                  for caption, path in figures])]
@@ -145,6 +148,24 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
               f"violations {p.rule_violations}"
               + (f"  facies acc vs truth {acc:.3f}" if acc is not None else "")
               + (f"  tract acc vs truth {tacc:.3f}" if tacc is not None else ""))
+    truth_surfaces = truth_dir / "surfaces.csv"
+    if truth_surfaces.is_file():
+        ev = cfg.section("evaluation")
+        truth = pd.read_csv(truth_surfaces)
+        truth = truth[truth["well"].isin([p.well.name for p in preds])]
+        tops = pd.read_csv(out / "predictions" / "tops.csv", comment="#")
+        picks = score_tops(tops, truth, float(ev["surface_match_tolerance"]),
+                           float(ev["surface_close_tolerance"]))
+        scores["picks"] = picks
+        print("  surfaces against the generator's truth (offset wells):")
+        for kind in ("MFS", "SB"):
+            k = picks[kind]
+            print(f"    {kind:<4} true {k['true']:3d}, within "
+                  f"{float(ev['surface_close_tolerance']):g} ft {k['within_close']:.3f}, "
+                  f"missed {k['missed']}, extra per true {k['extra']:.3f}, median error "
+                  f"{k['median_error_ft'] if k['median_error_ft'] is not None else float('nan'):.2f} ft")
+        print(f"    p10-p90 coverage {picks['coverage'] or float('nan'):.3f}, basin-wide sequence "
+              f"names right {picks['names'] if picks['names'] is not None else float('nan'):.3f}")
     summary["truth_scores"] = scores
     summary["model_version"] = version
 

@@ -142,6 +142,10 @@ def match_surfaces(true: Iterable[Any], pred: Iterable[Any], kind: str, toleranc
             "named_right": named, "name_checked": name_checked}
 
 
+def _share(num: Any, den: Any) -> float | None:
+    return float(num) / float(den) if den else None
+
+
 def _median(values: list[float]) -> float | None:
     return float(np.median(values)) if values else None
 
@@ -194,6 +198,10 @@ def score_well(pred: WellPrediction, labels: pd.DataFrame, pipeline: FaciesPipel
                 out[f"{key}_true_count"] = m["n_true"]
                 out[f"{key}_within_close_share"] = (m["within_close"] / m["n_true"]
                                                     if m["n_true"] else None)
+            matched = len(out["mfs_errors"]) + len(out["sb_errors"])
+            out["p10_p90_coverage"] = _share(out["mfs_covered"] + out["sb_covered"], matched)
+            out["names_right_share"] = _share(out["mfs_named_right"] + out["sb_named_right"],
+                                              out["mfs_name_checked"] + out["sb_name_checked"])
             target = [pipeline.tract_names_.index(t) for t in ("TST", "EHST")
                       if t in pipeline.tract_names_]
             step = float(np.median(np.diff(depth))) if len(depth) > 1 else cfg.step
@@ -294,10 +302,6 @@ def leave_one_well_out(
     return metrics, predictions
 
 
-def _share(num: Any, den: Any) -> float | None:
-    return float(num) / float(den) if den else None
-
-
 def format_table(metrics: dict[str, Any]) -> str:
     """Plain-text per-well table of the held-out scores: lithofacies, systems tracts before
     and after the sequence model, SB and MFS picked within the close tolerance (share of the
@@ -315,10 +319,8 @@ def format_table(metrics: dict[str, Any]) -> str:
             ("SB_miss", lambda m: m.get("sb_missed")),
             ("SB_extra", lambda m: m.get("sb_extra")),
             ("SB_err", lambda m: m.get("sb_depth_error")),
-            ("p10_p90", lambda m: _share((m.get("mfs_covered") or 0) + (m.get("sb_covered") or 0),
-                                         len(m.get("mfs_errors") or []) + len(m.get("sb_errors") or []))),
-            ("names", lambda m: _share((m.get("mfs_named_right") or 0) + (m.get("sb_named_right") or 0),
-                                       (m.get("mfs_name_checked") or 0) + (m.get("sb_name_checked") or 0))),
+            ("p10_p90", lambda m: m.get("p10_p90_coverage")),
+            ("names", lambda m: m.get("names_right_share")),
             ("viol", lambda m: m.get("rule_violations"))]
     head = f"{'well':<12}" + "".join(f"{short:>10}" for short, _ in cols)
     lines = [head, "-" * len(head)]
