@@ -185,6 +185,10 @@ def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, An
         "wells": {r.well: {"file": r.file, "model_used": r.model_used,
                            "out_of_range_fraction": round(r.out_of_range_fraction, 4),
                            "surfaces": len(r.surfaces), "rule_violations": r.rule_violations,
+                           "picks_to_review": [
+                               f"{x.kind} {x.sequence or '(unnamed)'} at {x.depth:.2f} "
+                               f"{r.depth_unit}: {'; '.join(x.flags)}"
+                               for x in r.surfaces if x.flags],
                            "notes": r.notes, "intake": r.intake} for r in ok},
         "failures": failures,
         "caution": CAUTION,

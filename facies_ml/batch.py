@@ -80,7 +80,7 @@ def well_result(pipe: FaciesPipeline, pred: WellPrediction, file: str,
         out_of_range_fraction=pred.out_of_range_fraction, rule_violations=pred.rule_violations,
         surfaces=pred.surfaces, depth_unit=pred.well.depth_unit, intake=pred.well.intake,
         landing=landing_summary(pred, pipe.config.section("landing")).to_dict("records"),
-        timings=timings or {})
+        timings=timings or {}, notes=list(pred.info.get("sequence_flags", [])))
 
 
 _WORKER_PIPELINES: dict[str, FaciesPipeline] = {}
@@ -164,7 +164,7 @@ def predict_file(pipe: FaciesPipeline, path: str | Path, out_dir: str | Path | N
             except Exception as exc:  # noqa: BLE001 - a figure never aborts the batch
                 notes.append(f"well section not drawn ({one_line(exc)})")
         res = well_result(pipe, pred, str(path))
-        res.notes = notes
+        res.notes = res.notes + notes
         res.timings = {"read_condition_s": t_read / max(1, len(wells)), "predict_s": t2 - t1,
                        "write_s": t3 - t2, "plot_s": time.perf_counter() - t3}
         results.append((res, pred) if _kept(keep_predictions, w.name, str(path)) else res)

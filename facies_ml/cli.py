@@ -140,6 +140,8 @@ def run(args: argparse.Namespace) -> int:
         for name, info in summary["wells"].items():
             for note in info.get("notes", []):
                 print(f"  note: {name}: {note}")
+            for pick in info.get("picks_to_review", []):
+                print(f"  review: {name}: {pick}")
         if summary.get("panel_wells_not_predicted"):
             print("  not on the panel (no such well predicted): "
                   + ", ".join(summary["panel_wells_not_predicted"]))

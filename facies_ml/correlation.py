@@ -38,6 +38,7 @@ import numpy as np
 import pandas as pd
 
 from facies_ml.errors import InputError
+from facies_ml.sequence.runs import split_runs
 
 # Fingerprint keys (see SequenceUnit.fingerprint).
 THICKNESS_FEATURES = ("thickness", "flood_thickness")
@@ -94,16 +95,6 @@ class SequenceUnit:
     def is_cut(self) -> bool:
         """True when either end of the unit is the edge of the logged interval."""
         return self.base_is_log_edge or self.top_is_log_edge
-
-
-def _runs(path: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Start index and length of each run of equal values in ``path``."""
-    if path.size == 0:
-        return np.zeros(0, int), np.zeros(0, int)
-    change = np.flatnonzero(path[1:] != path[:-1]) + 1
-    starts = np.concatenate([[0], change])
-    lengths = np.diff(np.concatenate([starts, [path.size]]))
-    return starts, lengths
 
 
 def _mean(values: np.ndarray) -> float:
@@ -176,7 +167,7 @@ def split_sequences(depth: np.ndarray, tracts: np.ndarray, curves: pd.DataFrame,
     gr_iqr = (float(np.subtract(*np.percentile(finite_gr, [75, 25])))
               if finite_gr.size else math.nan)
 
-    starts, lengths = _runs(path)
+    starts, lengths, _ = split_runs(path)
     unit_of_run = np.zeros(len(starts), int)
 
     # Boundary below run r (up-section): midway between its first sample and the one below.

@@ -25,6 +25,7 @@ from facies_ml.config import Config
 from facies_ml.lithofacies import reliability_table
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.sequence import pick_surfaces
+from facies_ml.sequence.runs import split_runs
 from facies_ml.wells import Well
 
 PER_WELL_KEYS = (
@@ -83,9 +84,8 @@ def classification_metrics(y_true: np.ndarray, y_pred: np.ndarray, proba: np.nda
 
 def labelled_runs(labels: np.ndarray) -> list[tuple[int, int]]:
     """(start, stop) index pairs of contiguous runs with label >= 0."""
-    ok = np.concatenate([[False], labels >= 0, [False]])
-    edges = np.flatnonzero(np.diff(ok.astype(int)))
-    return list(zip(edges[::2], edges[1::2], strict=True))
+    starts, lengths, labelled = split_runs(np.asarray(labels) >= 0)
+    return [(int(a), int(a + n)) for a, n, ok in zip(starts, lengths, labelled, strict=True) if ok]
 
 
 def true_surfaces(depth: np.ndarray, tracts: np.ndarray, rules: Any,

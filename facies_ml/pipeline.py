@@ -189,7 +189,12 @@ class FaciesPipeline:
         E_all = pd.concat(evid, ignore_index=True)
         yt = np.concatenate(y_states)
         g = np.concatenate([np.full(len(E), k) for k, E in enumerate(evid)])
-        has_t = yt >= 0
+        # neighbouring samples of one tract carry nearly the same evidence: every
+        # ``evidence_row_stride``-th labelled sample trains the tract models (faster, same fit)
+        stride = int(seq["evidence_row_stride"])
+        if stride < 1:
+            raise InputError(f"sequence.evidence_row_stride must be >= 1, not {stride}")
+        has_t = (yt >= 0) & (np.arange(yt.size) % stride == 0)
         n_tracts = len(self.tract_names_)
         tract_params = dict(params, class_weight=None)
         self.tract_model_ = LithofaciesClassifier(**tract_params).fit(
@@ -205,6 +210,7 @@ class FaciesPipeline:
             duration_prior_log_sigma=float(dur["prior_log_sigma"]),
             duration_log_sigma_floor=float(dur["log_sigma_floor"]),
             evidence_weight=float(seq["evidence_weight"]),
+            decode_resolution=float(seq["decode_resolution"]),
         ).fit(y_states, step=step, depth_unit=cfg.working_unit)
         # held-out tract posteriors of each training well -> evidence weight
         wells_t = [k for k, y in enumerate(y_states) if (y >= 0).any()]
@@ -231,6 +237,7 @@ class FaciesPipeline:
             sb_trend_window=float(ch["sb_trend_window"]),
             confidence_tolerance=float(ch["confidence_tolerance"]),
             depth_from=str(ch["depth_from"]),
+            edge_run_min=float(ch["edge_run_min"]),
             low_confidence=float(ch["low_confidence"]),
             failed_check_confidence=float(ch["failed_check_confidence"]))
 
@@ -391,7 +398,9 @@ class FaciesPipeline:
             surfaces, seq_names, seq_flags = self.name_sequences(well, decoded.path,
                                                                  decoded.surfaces)
             table["sequence"] = seq_names
-            info_flags = seq_flags
+            info_flags = seq_flags + [
+                f"{x.kind} at {x.depth:.2f} {well.depth_unit} not reported: {'; '.join(x.flags)}"
+                for x in decoded.edge_surfaces]
             viol_raw, viol = decoded.violations_raw, decoded.violations
         return WellPrediction(
             well=well, table=table, surfaces=surfaces, model_used=model_name,

@@ -364,7 +364,8 @@ def thick_model() -> TractSequenceModel:
                                duration_prior_runs=float(dur["prior_runs"]),
                                duration_prior_log_sigma=float(dur["prior_log_sigma"]),
                                duration_log_sigma_floor=float(dur["log_sigma_floor"]),
-                               evidence_weight=float(seq_cfg["evidence_weight"]))
+                               evidence_weight=float(seq_cfg["evidence_weight"]),
+                               decode_resolution=float(seq_cfg["decode_resolution"]))
     return model.fit(wells, step=0.5, depth_unit="ft")
 
 

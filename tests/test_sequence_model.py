@@ -35,7 +35,8 @@ def settings_kwargs(**over: Any) -> dict[str, Any]:
                               duration_prior_runs=float(dur["prior_runs"]),
                               duration_prior_log_sigma=float(dur["prior_log_sigma"]),
                               duration_log_sigma_floor=float(dur["log_sigma_floor"]),
-                              evidence_weight=float(seq["evidence_weight"]))
+                              evidence_weight=float(seq["evidence_weight"]),
+                              decode_resolution=float(seq["decode_resolution"]))
     kw.update(over)
     return kw
 
@@ -117,7 +118,7 @@ def test_decode_equals_reference_decoder(fitted: TractSequenceModel) -> None:
     # enumeration and against hmmlearn 0.3.3 in test_semimarkov.py) on the model's tables.
     rng = np.random.default_rng(12)
     ll = rng.normal(size=(120, 4)) * 2.0
-    res = fitted.decode(ll)
+    res = fitted.decode(ll, block=1)
     path, lp = reference_viterbi(fitted.params_.tables(ll.shape[0]), ll)
     np.testing.assert_array_equal(res.path, path)
     assert res.log_prob == pytest.approx(lp, rel=1e-10)

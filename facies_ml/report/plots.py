@@ -22,6 +22,7 @@ from matplotlib.ticker import NullFormatter  # noqa: E402
 from facies_ml.config import read_yaml  # noqa: E402
 from facies_ml.features import upsection_slope  # noqa: E402
 from facies_ml.pipeline import WellPrediction  # noqa: E402
+from facies_ml.sequence.runs import split_runs  # noqa: E402
 
 FOOTER = ("Predictions are probabilistic; review by a qualified geoscientist is required "
           "(local regulations and licensed practice apply).")
@@ -47,10 +48,9 @@ def _column(ax: Any, depth: np.ndarray, codes: np.ndarray, colours: list[str]) -
     if len(depth) == 0:
         return
     step = float(np.median(np.diff(depth))) if len(depth) > 1 else 1.0
-    change = np.flatnonzero(np.diff(codes)) + 1
-    starts = np.concatenate([[0], change])
-    stops = np.concatenate([change, [len(codes)]])
-    keep = codes[starts] >= 0
+    starts, lengths, values = split_runs(np.asarray(codes))
+    stops = starts + lengths
+    keep = values >= 0
     starts, stops = starts[keep], stops[keep]
     top, base = depth[starts] - step / 2, depth[stops - 1] + step / 2
     # one collection of rectangles (one per run), far faster than a patch per run

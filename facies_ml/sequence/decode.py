@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from facies_ml.errors import InputError
+from facies_ml.sequence.runs import split_runs
 
 _DEFAULT_BLOCK = 256
 _FB_BLOCK = 128                 # forward-backward time block (grows as sqrt(T) for long input)
@@ -270,19 +271,10 @@ def viterbi_durations(log_start: np.ndarray, log_stay: np.ndarray, log_switch: n
     return path, _duration_path_score(path, ls, a, sw, m, e)
 
 
-def _runs(path: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Start index and length of each run of equal values."""
-    change = np.flatnonzero(np.diff(path)) + 1
-    starts = np.concatenate([[0], change])
-    lengths = np.diff(np.concatenate([starts, [path.size]]))
-    return starts, lengths
-
-
 def _duration_path_score(path: np.ndarray, log_start: np.ndarray, log_stay: np.ndarray,
                          log_switch: np.ndarray, m: np.ndarray, e: np.ndarray) -> float:
     """Log-probability of a tract path under the chain-expanded model (with emissions)."""
-    starts, lengths = _runs(path)
-    tracts = path[starts]
+    starts, lengths, tracts = split_runs(path)
     n_stay = lengths - m[tracts]
     n_stay[0] = lengths[0] - 1                      # first run starts in the last sub-state
     n_stay = np.maximum(n_stay, 0)

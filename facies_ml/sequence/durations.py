@@ -44,9 +44,12 @@ class DurationModel(ABC):
     def describe(self, step: float) -> dict[str, float]:
         """Plain summary in depth units (for manifests and notes)."""
 
-    def tables(self, D: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """log pmf, log surv, log first, log first_surv over d = 1..D."""
-        p = self.pmf(D)
+    def tables(self, D: int, block: int = 1
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """log pmf, log surv, log first, log first_surv over d = 1..D, in units of ``block``
+        samples (``D`` blocks; the pmf of ``m`` blocks sums thicknesses (m-1)*block+1 ..
+        m*block samples)."""
+        p = self.pmf(D * block).reshape(D, block).sum(axis=1)
         surv = np.cumsum(p[::-1])[::-1]
         mean = float(surv.sum())
         first = surv / mean if mean > 0 else surv

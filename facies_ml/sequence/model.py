@@ -24,6 +24,7 @@ from facies_ml.sequence.rules import TractRules
 from facies_ml.sequence.runs import split_runs
 from facies_ml.sequence.semimarkov import (
     SemiMarkovTables,
+    check_emissions,
     forward_backward_semimarkov,
     viterbi_semimarkov,
 )
@@ -48,6 +49,7 @@ class SequenceParameters:
     tract_prior: np.ndarray
     evidence_weight: float
     path_weight: float
+    block: int
     step: float
     depth_unit: str
 
@@ -67,14 +69,17 @@ class SequenceParameters:
             v = float(getattr(self, name))
             if not (np.isfinite(v) and v > 0):
                 raise InputError(f"sequence {name} must be > 0, not {v}")
+        if int(self.block) < 1:
+            raise InputError(f"sequence parameters: block must be >= 1, not {self.block}")
         if not self.step > 0:
             raise InputError(f"sequence parameters: step must be > 0, not {self.step}")
 
-    def tables(self, n_samples: int) -> SemiMarkovTables:
-        """Semi-Markov log tables for a log of ``n_samples`` samples."""
-        D_full = max(max(d.support() for d in self.durations), 2)
-        parts = [d.tables(D_full) for d in self.durations]
-        D = max(1, min(D_full, int(n_samples)))
+    def tables(self, n_steps: int, block: int = 1) -> SemiMarkovTables:
+        """Semi-Markov log tables for a log of ``n_steps`` decoding steps of ``block``
+        samples each."""
+        D_full = max(-(-max(d.support() for d in self.durations) // block), 2)
+        parts = [d.tables(D_full, block) for d in self.durations]
+        D = max(1, min(D_full, int(n_steps)))
         stack = [np.vstack([p[k][:D] for p in parts]) for k in range(4)]
         with np.errstate(divide="ignore"):
             ls = np.log(self.start)
@@ -99,13 +104,16 @@ class DecodeResult:
 @dataclass(frozen=True, eq=False)
 class WellSequence:
     """A well's decoded tracts TOP-DOWN (``path``, ``posterior``) and its surfaces (deepest
-    first), with the rule violations of the raw per-sample argmax for comparison."""
+    first), with the rule violations of the raw per-sample argmax for comparison.
+    ``edge_surfaces``: transitions of the path so close to a log edge that the tract beyond
+    them is not verifiable; they are not reported as picks (see ``SurfaceChecks``)."""
 
     path: np.ndarray
     posterior: np.ndarray
     surfaces: list[Surface]
     violations_raw: int
     violations: int
+    edge_surfaces: list[Surface]
 
 
 class TractSequenceModel:
@@ -116,12 +124,15 @@ class TractSequenceModel:
     'minimum_geometric'), ``prior_count`` (pseudo-count on every allowed transition and start),
     ``duration_prior_runs`` / ``duration_prior_log_sigma`` / ``duration_log_sigma_floor`` (the
     thickness prior, see :func:`facies_ml.sequence.durations.fit_durations`),
-    ``evidence_weight`` (exponent on the scaled likelihoods until :meth:`calibrate_weight`).
+    ``evidence_weight`` (exponent on the scaled likelihoods until :meth:`calibrate_weight`),
+    ``decode_resolution`` (depth units per decoding step; boundaries are then refined to the
+    sample, see :meth:`decode`).
     """
 
     def __init__(self, rules: TractRules, duration_model: str, prior_count: float,
                  duration_prior_runs: float, duration_prior_log_sigma: float,
-                 duration_log_sigma_floor: float, evidence_weight: float) -> None:
+                 duration_log_sigma_floor: float, evidence_weight: float,
+                 decode_resolution: float) -> None:
         self.rules = rules
         self.duration_model = duration_model
         self.prior_count = prior_count
@@ -129,6 +140,7 @@ class TractSequenceModel:
         self.duration_prior_log_sigma = duration_prior_log_sigma
         self.duration_log_sigma_floor = duration_log_sigma_floor
         self.evidence_weight = evidence_weight
+        self.decode_resolution = decode_resolution
 
     # ------------------------------------------------------------------ training
     def fit(self, labels_topdown: list[np.ndarray], step: float,
@@ -138,7 +150,7 @@ class TractSequenceModel:
         rules = self.rules
         n = rules.n_states
         for name in ("prior_count", "duration_prior_runs", "duration_prior_log_sigma",
-                     "duration_log_sigma_floor", "evidence_weight"):
+                     "duration_log_sigma_floor", "evidence_weight", "decode_resolution"):
             v = float(getattr(self, name))
             if not (np.isfinite(v) and v > 0):
                 raise InputError(f"sequence.{name} must be > 0, not {getattr(self, name)!r}")
@@ -188,7 +200,9 @@ class TractSequenceModel:
             switch=counts / counts.sum(axis=1, keepdims=True), durations=tuple(durations),
             tract_prior=(share + 1.0) / (share + 1.0).sum(),
             evidence_weight=float(self.evidence_weight),
-            path_weight=float(self.evidence_weight), step=float(step),
+            path_weight=float(self.evidence_weight),
+            block=max(1, int(round(float(self.decode_resolution) / float(step)))),
+            step=float(step),
             depth_unit=str(depth_unit))
         return self
 
@@ -210,21 +224,73 @@ class TractSequenceModel:
 
     # ------------------------------------------------------------------ decoding
     def decode(self, log_emit_upsection: np.ndarray, posteriors: bool = True,
-               path_scale: float = 1.0) -> DecodeResult:
-        """Decode (T, n) emission log-likelihoods given UP-SECTION; result up-section. The
-        Viterbi path uses the emissions times ``path_scale``, the posteriors the emissions."""
+               path_scale: float = 1.0, block: int | None = None) -> DecodeResult:
+        """Decode (T, n) emission log-likelihoods given UP-SECTION; result up-section, one row
+        per sample. The Viterbi path uses the emissions times ``path_scale``, the posteriors
+        the emissions.
+
+        ``block`` (default: the fitted ``params_.block``) samples are summed per decoding step
+        (thicknesses in whole blocks), which cuts the cost by about ``block**2``; each decoded
+        boundary is then moved, within one block either side and never making a run thinner
+        than its minimum, to the sample where the emissions of the tracts below and above
+        change best (the exact path score given the neighbouring boundaries). Posteriors are
+        per block (repeated on its samples); run entries sit on block edges."""
         p = self._check_fitted()
         e = np.asarray(log_emit_upsection, dtype=float)
         n = len(p.states)
         if e.ndim != 2 or e.shape[1] != n:
             raise InputError(f"log-likelihoods must have shape (T, {n}) for tracts "
                              f"{', '.join(p.states)}; got {e.shape}")
-        tables = p.tables(e.shape[0])
-        path, log_prob = viterbi_semimarkov(tables, e * path_scale)
+        k = int(p.block if block is None else block)
+        if k < 1:
+            raise InputError(f"decoding block must be >= 1 sample, not {k}")
+        e = check_emissions(e, n)            # rows named on the samples, before blocking
+        T = e.shape[0]
+        ec = e
+        if k > 1:
+            Tc = -(-T // k)
+            pad = np.zeros((Tc * k, n))
+            pad[:T] = e
+            ec = pad.reshape(Tc, k, n).sum(axis=1)
+        tables = p.tables(ec.shape[0], k)
+        path_c, log_prob = viterbi_semimarkov(tables, ec * path_scale)
+        path = path_c if k == 1 else self._refine(np.repeat(path_c, k)[:T], e * path_scale, k)
         if not posteriors:
             return DecodeResult(path, np.eye(n)[path], None, log_prob, float("nan"))
-        fb = forward_backward_semimarkov(tables, e)
-        return DecodeResult(path, fb.occupancy, fb.entry, log_prob, fb.log_likelihood)
+        fb = forward_backward_semimarkov(tables, ec)
+        if k == 1:
+            return DecodeResult(path, fb.occupancy, fb.entry, log_prob, fb.log_likelihood)
+        occ = np.repeat(fb.occupancy, k, axis=0)[:T]
+        entry = np.zeros((T, n, n))
+        entry[::k] = fb.entry[:entry[::k].shape[0]]
+        return DecodeResult(path, occ, entry, log_prob, fb.log_likelihood)
+
+    def _refine(self, path: np.ndarray, e: np.ndarray, k: int) -> np.ndarray:
+        """Move each run boundary of a block-decoded path (up-section) by up to ``k`` samples
+        to where ``sum(e[:, below]) + sum(e[:, above])`` is largest, bottom-up, keeping
+        every inner run at least its minimum thickness (see :meth:`decode`)."""
+        starts, lengths, tracts = split_runs(path)
+        if starts.size < 2:
+            return path
+        m = np.array([d.min_samples for d in self._check_fitted().durations])
+        C = np.vstack([np.zeros((1, e.shape[1])), np.cumsum(e, axis=0)])
+        bounds = list(starts[1:]) + [path.size]
+        out = path.copy()
+        prev = 0
+        for r in range(1, starts.size):
+            b = int(bounds[r - 1])
+            lo_t, hi_t = int(tracts[r - 1]), int(tracts[r])
+            nxt = int(bounds[r])
+            lo = max(b - k, prev + (m[lo_t] if r - 1 > 0 else 1))
+            hi = min(b + k, nxt - (m[hi_t] if r < starts.size - 1 else 1))
+            if lo <= hi:
+                cand = np.arange(lo, hi + 1)
+                gain = C[cand, lo_t] - C[cand, hi_t]
+                b = int(cand[np.argmax(gain)])
+            out[prev:b] = lo_t
+            out[b:nxt] = hi_t
+            prev = b
+        return out
 
     def decode_well(self, tract_posterior_topdown: np.ndarray, depth_topdown: np.ndarray,
                     gr_topdown: np.ndarray | None, checks: SurfaceChecks | None
@@ -238,9 +304,11 @@ class TractSequenceModel:
         surfaces = pick_surfaces(np.asarray(depth_topdown, dtype=float)[up], res.path,
                                  self.rules, entry=res.entry, gr=gr, checks=checks)
         raw = post.argmax(axis=1)
-        return WellSequence(path=res.path[up], posterior=res.posterior[up], surfaces=surfaces,
+        return WellSequence(path=res.path[up], posterior=res.posterior[up],
+                            surfaces=[x for x in surfaces if not x.at_edge],
                             violations_raw=int(self.rules.count_violations(raw[up])),
-                            violations=int(self.rules.count_violations(res.path)))
+                            violations=int(self.rules.count_violations(res.path)),
+                            edge_surfaces=[x for x in surfaces if x.at_edge])
 
     # ------------------------------------------------------------------ calibration
     def calibrate_weight(self, posteriors_topdown: list[np.ndarray],

@@ -85,7 +85,8 @@ class SemiMarkovPosterior:
     log_likelihood: float
 
 
-def _emissions(log_emit: np.ndarray, n: int) -> np.ndarray:
+def check_emissions(log_emit: np.ndarray, n: int) -> np.ndarray:
+    """(T, n) float emissions, refusing a wrong shape, an empty log and non-finite values."""
     e = np.asarray(log_emit, dtype=float)
     if e.ndim != 2 or e.shape[1] != n:
         raise InputError(f"emission log-likelihoods must have shape (T, {n}), got {e.shape}")
@@ -116,7 +117,7 @@ def viterbi_semimarkov(tables: SemiMarkovTables, log_emit: np.ndarray
                        ) -> tuple[np.ndarray, float]:
     """Most likely tract path (T,) and its log-probability (emissions included)."""
     n, D = tables.n_states, tables.max_duration
-    e = _emissions(log_emit, n)
+    e = check_emissions(log_emit, n)
     T = e.shape[0]
     C = _cumulative(e)
     pmf_t = tables.log_pmf.T                          # (D, n), row d - 1
@@ -180,7 +181,7 @@ def forward_backward_semimarkov(tables: SemiMarkovTables, log_emit: np.ndarray
                                 ) -> SemiMarkovPosterior:
     """Per-sample tract posteriors, run-entry posteriors and the log-likelihood."""
     n, D = tables.n_states, tables.max_duration
-    e = _emissions(log_emit, n)
+    e = check_emissions(log_emit, n)
     T = e.shape[0]
     C = _cumulative(e)
     pmf_t = tables.log_pmf.T

@@ -44,9 +44,12 @@ class SurfaceChecks:
     low_confidence: float            # picks below this confidence are flagged
     failed_check_confidence: float   # a pick failing a check never reports more
     depth_from: str                  # reported depth: "viterbi" boundary | "posterior_median"
+    edge_run_min: float              # a surface whose run below / above is cut by the log edge
+                                     # and thinner than this is not verifiable: marked at_edge
 
     def __post_init__(self) -> None:
-        for name in ("mfs_gr_window", "gr_smoothing", "sb_trend_window", "confidence_tolerance"):
+        for name in ("mfs_gr_window", "gr_smoothing", "sb_trend_window", "confidence_tolerance",
+                     "edge_run_min"):
             if not float(getattr(self, name)) > 0:
                 raise InputError(f"sequence.checks.{name} must be > 0")
         if self.depth_from not in ("viterbi", "posterior_median"):
@@ -73,6 +76,7 @@ class Surface:
     upper: str = ""            # tract above
     sequence: str = ""         # basin-wide sequence name (filled by the correlation step)
     flags: tuple[str, ...] = field(default_factory=tuple)
+    at_edge: bool = False      # the run below/above is cut by the log edge and too thin to verify
 
 
 def _smooth(gr: np.ndarray, n: int) -> np.ndarray:
@@ -209,6 +213,17 @@ def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
                              "(API per depth unit)")
                     if not gr_check:
                         flags.append("no upward turn of the GR stacking at this SB")
+        at_edge = False
+        if chk is not None:
+            edge_runs = [r - 1] if r - 1 == 0 else []
+            if r == starts.size - 1:
+                edge_runs.append(r)
+            for e_r in edge_runs:
+                thick = lengths[e_r] * step
+                if thick < chk.edge_run_min * (1 - 1e-9):
+                    at_edge = True
+                    flags.append(f"only {thick:.1f} of {rules.states[int(tracts[e_r])]} "
+                                 "between the surface and the log edge: not verifiable")
         if chk is not None and gr_check is False:
             conf = min(conf, chk.failed_check_confidence)
         if chk is not None and conf < chk.low_confidence:
@@ -216,5 +231,5 @@ def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
         out.append(Surface(kind=kind, depth=float(z), depth_p10=float(p10), depth_p90=float(p90),
                            confidence=float(conf), gr_check=gr_check, note=note, index=b,
                            lower=rules.states[lo_t], upper=rules.states[hi_t],
-                           flags=tuple(flags)))
+                           flags=tuple(flags), at_edge=at_edge))
     return out
