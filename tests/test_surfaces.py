@@ -221,6 +221,7 @@ def test_same_surfaces_in_feet_and_metres(seed: int, n_runs: int, base_ft: float
     ft = replace(CHECKS, mfs_gr_window=window_ft, gr_smoothing=0.5 * smooth_n,
                  sb_trend_window=0.5 * trend_n, confidence_tolerance=tol_ft)
     m = replace(ft, mfs_gr_window=ft.mfs_gr_window * FT_TO_M,
+                edge_run_min=ft.edge_run_min * FT_TO_M,
                 confidence_tolerance=ft.confidence_tolerance * FT_TO_M,
                 gr_smoothing=ft.gr_smoothing * FT_TO_M,
                 sb_trend_window=ft.sb_trend_window * FT_TO_M)
@@ -242,8 +243,21 @@ def test_boundary_exactly_at_the_tolerance_counts_in_metres_too() -> None:
     entry[[50, 60, 70], T, E] = [0.25, 0.5, 0.25]
     (a,) = pick_surfaces(depth, path, RULES, entry=entry, checks=CHECKS)
     m = replace(CHECKS, mfs_gr_window=CHECKS.mfs_gr_window * FT_TO_M,
+                edge_run_min=CHECKS.edge_run_min * FT_TO_M,
                 gr_smoothing=CHECKS.gr_smoothing * FT_TO_M,
                 sb_trend_window=CHECKS.sb_trend_window * FT_TO_M,
                 confidence_tolerance=CHECKS.confidence_tolerance * FT_TO_M)
     (b,) = pick_surfaces(depth * FT_TO_M, path, RULES, entry=entry, checks=m)
     assert a.confidence == b.confidence == pytest.approx(1.0)
+
+
+def test_surface_next_to_the_log_edge_is_not_verifiable() -> None:
+    # 3 ft (6 samples) of LHST at the base of the log below an SB: less than edge_run_min
+    # (8 ft) of the tract below is seen, so the pick is marked at_edge with its reason; the
+    # same SB with 20 ft of LHST below it is an ordinary pick.
+    for n_below, expect in ((6, True), (40, False)):
+        depth, path = column([(H, n_below), (T, 40), (E, 40)])
+        (sb,) = [s for s in pick_surfaces(depth, path, RULES, gr=np.full(path.size, 80.0),
+                                          checks=CHECKS) if s.kind == "SB"]
+        assert sb.at_edge is expect
+        assert any("log edge: not verifiable" in f for f in sb.flags) is expect

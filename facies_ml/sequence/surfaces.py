@@ -222,8 +222,9 @@ def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
                 thick = lengths[e_r] * step
                 if thick < chk.edge_run_min * (1 - 1e-9):
                     at_edge = True
-                    flags.append(f"only {thick:.1f} of {rules.states[int(tracts[e_r])]} "
-                                 "between the surface and the log edge: not verifiable")
+                    flags.append(f"only {int(lengths[e_r])} samples of "
+                                 f"{rules.states[int(tracts[e_r])]} between the surface and the "
+                                 "log edge: not verifiable")
         if chk is not None and gr_check is False:
             conf = min(conf, chk.failed_check_confidence)
         if chk is not None and conf < chk.low_confidence:
