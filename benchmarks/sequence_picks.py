@@ -38,9 +38,9 @@ SCORER = Path(__file__).resolve().parents[1].parent / "shared" / "tools" / "scor
 PRESETS = {"demo": CONFIG_DIR / "synthetic_basin.yaml", "hard": CONFIG_DIR / "synthetic_hard.yaml"}
 
 
-def run_basin(preset: str, seed: int, folder: Path) -> dict:
+def run_basin(preset: str, seed: int, folder: Path, config: str | None = None) -> dict:
     """Generate, train, predict and score one basin; returns the figures."""
-    cfg = load_config()
+    cfg = load_config(config)
     basin = folder / f"{preset}_seed{seed}"
     summary = generate_basin(basin, n_wells=10, n_cored=5, seed=seed,
                              config_path=PRESETS[preset])
@@ -82,13 +82,14 @@ def main() -> int:
     ap.add_argument("--seed", type=int, action="append",
                     help="basin seed (repeatable; default 11 for demo, 7 for hard)")
     ap.add_argument("--keep", help="folder for the generated basins and outputs (default: temp)")
+    ap.add_argument("--config", help="project settings file overriding configs/default.yaml")
     a = ap.parse_args()
     presets = ["demo", "hard"] if a.preset == "both" else [a.preset]
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(a.keep) if a.keep else Path(tmp)
         for preset in presets:
             for seed in a.seed or [11 if preset == "demo" else 7]:
-                s = run_basin(preset, seed, folder)
+                s = run_basin(preset, seed, folder, a.config)
                 print(f"\n== {preset} basin, seed {seed}: trained on 5 cored wells, "
                       f"5 offset wells never seen (evidence weights: path {s['path_weight']:g}, "
                       f"ranges {s['evidence_weight']:g}; "
