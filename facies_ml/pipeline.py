@@ -287,13 +287,12 @@ class FaciesPipeline:
         for u, name in zip(units, result.names, strict=True):
             per_sample_up[u.first_sample:u.first_sample + u.n_samples] = name
         per_sample = per_sample_up[::-1]
-        depth = well.depth
         out = []
         for s in surfaces:
-            # the sample just above the surface belongs to the sequence an MFS lies in; an SB
-            # is named after the sequence above it (the SB at the base of sequence <name>)
-            k = int(np.searchsorted(depth, s.depth))          # first sample below
-            above = per_sample[max(k - 1, 0)]
+            # the first sample above the surface (``index``, up-section) belongs to the
+            # sequence an MFS lies in; an SB is named after the sequence above it (the SB at
+            # the base of sequence <name>)
+            above = per_sample_up[min(max(s.index, 0), len(per_sample_up) - 1)]
             flags = list(s.flags)
             if not above:
                 flags.append("extra sequence: matches no basin sequence")
