@@ -137,7 +137,8 @@ def well_section(pred: WellPrediction, facies_labels: list[str], tract_names: li
             ax.axhline(s.depth, color=colour, lw=1.4)
             ax.plot([0.5, 0.5], [s.depth_p10, s.depth_p90], color=colour, lw=3, alpha=0.7,
                     transform=ax.get_yaxis_transform())
-            ax.text(1.02, s.depth, s.kind, transform=ax.get_yaxis_transform(), fontsize=6,
+            label = f"{s.kind} {s.sequence}".strip() + (" (review)" if s.flags else "")
+            ax.text(1.02, s.depth, label, transform=ax.get_yaxis_transform(), fontsize=6,
                     color=colour, va="center")
     ax.set_xlabel("systems tract")
     if core_labels is not None:
