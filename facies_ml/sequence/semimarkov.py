@@ -113,37 +113,51 @@ def _cumulative(e: np.ndarray) -> np.ndarray:
     return C
 
 
+def _shortest_run(tables: SemiMarkovTables) -> int:
+    """The thinnest complete run any tract may have (samples): runs ending within that many
+    samples of each other cannot depend on each other, so they are computed together."""
+    finite = np.isfinite(tables.log_pmf)
+    if not finite.any():
+        return 1
+    return max(1, int(np.argmax(finite.any(axis=0))) + 1)
+
+
 def viterbi_semimarkov(tables: SemiMarkovTables, log_emit: np.ndarray
                        ) -> tuple[np.ndarray, float]:
-    """Most likely tract path (T,) and its log-probability (emissions included)."""
+    """Most likely tract path (T,) and its log-probability (emissions included).
+
+    Runs ending at samples ``t .. t + c - 1`` (``c`` = the thinnest allowed complete run) only
+    read runs that started before ``t``, so they are scored in one numpy operation."""
     n, D = tables.n_states, tables.max_duration
     e = check_emissions(log_emit, n)
     T = e.shape[0]
     C = _cumulative(e)
     pmf_t = tables.log_pmf.T                          # (D, n), row d - 1
     sw = tables.log_switch
-    G = np.full((T + 1, n), -np.inf)                  # best score of a run starting at s, - C[s]
-    best_d = np.zeros((T + 1, n), dtype=np.int64)     # run ending at t: duration (0 = first run)
-    best_i = np.zeros((T + 1, n), dtype=np.int64)     # run starting at s: previous tract
+    Gp = np.full((D + T + 1, n), -np.inf)             # Gp[D + s]: best score of a run starting
+    best_d = np.zeros((T + 1, n), dtype=np.int64)     # at s, minus C[s]; run ending at t: its
+    best_i = np.zeros((T + 1, n), dtype=np.int64)     # duration (0 = first run); run starting
+    dd = np.arange(1, D + 1)                          # at s: the previous tract
+    c = _shortest_run(tables)
+    for t0 in range(1, T, c):
+        ts = np.arange(t0, min(t0 + c, T))
+        w = Gp[D + ts[:, None] - dd[None, :]] + pmf_t[None]          # (c, D, n)
+        k = np.argmax(w, axis=1)
+        score = np.take_along_axis(w, k[:, None, :], axis=1)[:, 0, :]
+        bd = k + 1
+        inside = ts <= D
+        if inside.any():
+            first = tables.log_start[None, :] + tables.log_first[:, ts[inside] - 1].T
+            take = first > score[inside]
+            score[inside] = np.where(take, first, score[inside])
+            bd[inside] = np.where(take, 0, bd[inside])
+        best_d[ts] = bd
+        cand = (score + C[ts])[:, :, None] + sw[None, :, :]           # (c, i, j)
+        i = np.argmax(cand, axis=1)
+        best_i[ts] = i
+        Gp[D + ts] = np.take_along_axis(cand, i[:, None, :], axis=1)[:, 0, :] - C[ts]
+    G = Gp[D:]
     cols = np.arange(n)
-    for t in range(1, T):
-        dmax = min(D, t - 1)
-        score = np.full(n, -np.inf)
-        if dmax > 0:
-            w = G[t - 1:t - dmax - 1:-1] + pmf_t[:dmax]
-            k = np.argmax(w, axis=0)
-            score = w[k, cols]
-            best_d[t] = k + 1
-        if t <= D:
-            first = tables.log_start + tables.log_first[:, t - 1]
-            take = first > score
-            score = np.where(take, first, score)
-            best_d[t] = np.where(take, 0, best_d[t])
-        end = score + C[t]
-        cand = end[:, None] + sw
-        i = np.argmax(cand, axis=0)
-        best_i[t] = i
-        G[t] = cand[i, cols] - C[t]
     # the last run (cut by the top of the log), or one run over the whole log
     dmax = min(D, T - 1)
     final = np.full(n, -np.inf)
@@ -186,21 +200,24 @@ def forward_backward_semimarkov(tables: SemiMarkovTables, log_emit: np.ndarray
     C = _cumulative(e)
     pmf_t = tables.log_pmf.T
     sw = tables.log_switch
-    # ---- forward: E[t] run ends at t (exclusive end), B[s] a new run starts at s (s >= 1)
+    # ---- forward: E[t] run ends at t (exclusive end), B[s] a new run starts at s (s >= 1);
+    # runs ending at t .. t + c - 1 only read runs starting before t (c = thinnest run)
     E = np.full((T + 1, n), -np.inf)
     B = np.full((T + 1, n), -np.inf)
-    G = np.full((T + 1, n), -np.inf)                  # B - C
-    for t in range(1, T):
-        dmax = min(D, t - 1)
-        parts = []
-        if dmax > 0:
-            parts.append(_lse(G[t - 1:t - dmax - 1:-1] + pmf_t[:dmax], axis=0))
-        if t <= D:
-            parts.append(tables.log_start + tables.log_first[:, t - 1])
-        acc = parts[0] if len(parts) == 1 else np.logaddexp(parts[0], parts[1])
-        E[t] = acc + C[t]
-        B[t] = _lse(E[t][:, None] + sw, axis=0)
-        G[t] = B[t] - C[t]
+    Gp = np.full((D + T + 1, n), -np.inf)             # Gp[D + s] = B[s] - C[s]
+    dd = np.arange(1, D + 1)
+    c = _shortest_run(tables)
+    for t0 in range(1, T, c):
+        ts = np.arange(t0, min(t0 + c, T))
+        acc = _lse(Gp[D + ts[:, None] - dd[None, :]] + pmf_t[None], axis=1)   # (c, n)
+        inside = ts <= D
+        if inside.any():
+            first = tables.log_start[None, :] + tables.log_first[:, ts[inside] - 1].T
+            acc[inside] = np.logaddexp(acc[inside], first)
+        E[ts] = acc + C[ts]
+        B[ts] = _lse(E[ts][:, :, None] + sw[None, :, :], axis=1)
+        Gp[D + ts] = B[ts] - C[ts]
+    G = Gp[D:]
     dmax = min(D, T - 1)
     parts = []
     if dmax > 0:
@@ -213,23 +230,22 @@ def forward_backward_semimarkov(tables: SemiMarkovTables, log_emit: np.ndarray
     log_z = float(_lse(fin + C[T], axis=0))
     if not np.isfinite(log_z):
         raise InputError("no tract path satisfies the rules and thicknesses for this sequence")
-    # ---- backward: R[s] given a run starts at s (s >= 1); X[t] given a run ended at t
+    # ---- backward: R[s] given a run starts at s (s >= 1); X[t] given a run ended at t;
+    # runs starting at s - c + 1 .. s only read runs starting after s
     R = np.full((T + 1, n), -np.inf)
     X = np.full((T + 1, n), -np.inf)
-    H = np.full((T + 1, n), -np.inf)                  # X + C
+    Hp = np.full((T + 1 + D, n), -np.inf)             # Hp[t] = X[t] + C[t] (t <= T - 1)
     surv_t = tables.log_surv.T
-    for s in range(T - 1, 0, -1):
-        parts = []
-        d_last = T - s
-        if d_last <= D:
-            parts.append(surv_t[d_last - 1] + C[T])
-        dmax = min(D, T - s - 1)
-        if dmax > 0:
-            parts.append(_lse(H[s + 1:s + dmax + 1] + pmf_t[:dmax], axis=0))
-        acc = parts[0] if len(parts) == 1 else np.logaddexp(parts[0], parts[1])
-        R[s] = acc - C[s]
-        X[s] = _lse(sw + R[s][None, :], axis=1)
-        H[s] = X[s] + C[s]
+    for s0 in range(T - 1, 0, -c):
+        ss = np.arange(s0, max(s0 - c, 0), -1)
+        acc = _lse(Hp[ss[:, None] + dd[None, :]] + pmf_t[None], axis=1)     # (c, n)
+        last = T - ss <= D
+        if last.any():
+            acc[last] = np.logaddexp(acc[last], surv_t[T - ss[last] - 1] + C[T])
+        R[ss] = acc - C[ss]
+        X[ss] = _lse(sw[None, :, :] + R[ss][:, None, :], axis=2)
+        Hp[ss] = X[ss] + C[ss]
+    H = Hp[:T + 1]
     # ---- posteriors
     with np.errstate(invalid="ignore"):
         entry = np.exp(E[:T, :, None] + sw[None, :, :] + R[:T, None, :] - log_z)
