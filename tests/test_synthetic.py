@@ -589,3 +589,14 @@ def test_hard_preset_harder_than_demo() -> None:
     assert hard_cfg["logging"]["gr_offset_api"][1] > demo["logging"]["gr_offset_api"][1]
     assert demo["thickness"]["erosion"]["wells"] == 0
     assert demo["composition"]["hot_stringers"]["per_100ft"] == 0
+
+
+def test_hard_preset_with_an_eroded_sequence_below_a_log_window_cut(tmp_path: Path) -> None:
+    # Seed 9 erodes a whole sequence in a well whose log window is cut: the eroded sequence
+    # has no SB height, and the window must still be found (this seed crashed before).
+    s = generate_basin(tmp_path / "h9", n_wells=10, n_cored=5, seed=9,
+                       config_path=PRESETS["hard"])
+    surf = pd.read_csv(tmp_path / "h9" / "truth" / "surfaces.csv")
+    assert set(surf["well"]) == set(s.wells)
+    meta = json.loads((tmp_path / "h9" / "basin.json").read_text())
+    assert sum(bool(w["eroded_sequences"]) for w in meta["wells"]) == 2

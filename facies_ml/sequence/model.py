@@ -319,7 +319,9 @@ class TractSequenceModel:
         evidence model did not see), with the interpreted tracts ``labels_topdown`` and their
         depths (working unit, top-down):
 
-        - ``path_weight``: the best held-out accuracy of the decoded path;
+        - ``path_weight``: the best held-out balanced accuracy of the decoded path (the mean
+          over tracts of the share of each tract's samples decoded right, so a tract present
+          in few wells, such as a lowstand, is not traded away for the common ones);
         - ``evidence_weight`` (posteriors, surface ranges, confidence): the share of held-out
           true surfaces matched within ``match_tolerance`` whose p10-p90 range holds the true
           depth comes closest to ``target_coverage`` (ties: the better mean log posterior of
@@ -345,13 +347,17 @@ class TractSequenceModel:
         if not wells:
             return []
         rows = []
+        n = len(p.states)
         for w in grid:
-            right = count = 0
+            hits = np.zeros(n)
+            seen = np.zeros(n)
             for post, truth, _, _ in wells:
                 path = self.decode(self.emission(post, weight=w)[::-1], posteriors=False).path
-                right += int((path == truth).sum())
-                count += truth.size
-            rows.append({"evidence_weight": float(w), "path_accuracy": right / count})
+                seen += np.bincount(truth, minlength=n)
+                hits += np.bincount(truth[path == truth], minlength=n)
+            present = seen > 0
+            rows.append({"evidence_weight": float(w),
+                         "path_accuracy": float((hits[present] / seen[present]).mean())})
         best_path = max(rows, key=lambda r: r["path_accuracy"])["evidence_weight"]
         for row in rows:
             w = row["evidence_weight"]
@@ -383,5 +389,5 @@ class TractSequenceModel:
         best = min(scored, key=lambda r: (abs(r["coverage"] - target_coverage)
                                           if np.isfinite(r["coverage"]) else 1.0,
                                           -r["mean_log_score"]))["evidence_weight"]
-        self.params_ = replace(p, evidence_weight=best, path_weight=best_path)
+        self.params_ = replace(p, evidence_weight=best, path_weight=best)
         return rows

@@ -197,6 +197,9 @@ def _log_window(col: strat.Column, role: str, lw: dict[str, Any], n_seq: int,
     n = len(col.height_ft)
     total = float(col.height_ft[-1] + (col.height_ft[1] - col.height_ft[0]) / 2) if n > 1 else 0.0
     bounds = np.concatenate([col.sb_height_ft, [total]])
+    for k in range(n_seq - 1, -1, -1):        # an eroded sequence has no SB: zero thickness
+        if not np.isfinite(bounds[k]):        # at the SB of the sequence above it
+            bounds[k] = bounds[k + 1]
     cb = float(rng.uniform(*lw["cut_base_sequences"]))
     ct = float(rng.uniform(*lw["cut_top_sequences"]))
 
