@@ -359,6 +359,10 @@ class SequenceCorrelator:
     - ``skip_cost_interior``: cost of skipping a basin sequence between the first and last
       matched unit (erosion or a missed pick). Skips outside that range are free.
     - ``extra_cost``: cost of leaving a unit unmatched (an extra sequence, e.g. a spurious SB).
+    - ``edge_fragment_cost``: the same for a unit cut by a log edge that holds no MFS: a
+      fragment of a sequence whose flooding surface lies outside the log (or a sliver decoded
+      at the edge); it carries too little to be named, and naming it would push its neighbour
+      off its name.
     - ``feature_weights``: weight per fingerprint key (missing keys weigh 0 when a dict is
       given); None weighs every key in :data:`FEATURES` by 1.
     - ``spread_prior_count``: pseudo-count of the pooled within-name spread mixed into each
@@ -385,12 +389,13 @@ class SequenceCorrelator:
     ``well_names_`` (cored well -> per-unit names, filled by the unnamed fallback too).
     """
 
-    def __init__(self, *, skip_cost_interior: float, extra_cost: float,
+    def __init__(self, *, skip_cost_interior: float, extra_cost: float, edge_fragment_cost: float,
                  feature_weights: dict[str, float] | None, spread_prior_count: float,
                  spread_floor_fraction: float, scale_iterations: int,
                  max_thickness_ratio: float) -> None:
         self.skip_cost_interior = skip_cost_interior
         self.extra_cost = extra_cost
+        self.edge_fragment_cost = edge_fragment_cost
         self.feature_weights = feature_weights
         self.spread_prior_count = spread_prior_count
         self.spread_floor_fraction = spread_floor_fraction
@@ -399,7 +404,8 @@ class SequenceCorrelator:
 
     # ---------------------------------------------------------------- validation
     def _validate(self) -> dict[str, float]:
-        for name in ("skip_cost_interior", "extra_cost", "spread_prior_count"):
+        for name in ("skip_cost_interior", "extra_cost", "edge_fragment_cost",
+                     "spread_prior_count"):
             v = getattr(self, name)
             if not isinstance(v, int | float) or isinstance(v, bool) or not math.isfinite(v) \
                     or v < 0:
@@ -628,11 +634,14 @@ class SequenceCorrelator:
                 d.append(x - mu)
         return float(np.median(d)) if d else None
 
-    def _align(self, cost: np.ndarray) -> tuple[float, list[int]]:
-        """Order-preserving DP. Returns total cost and per-unit name index (-1 = extra)."""
+    def _align(self, cost: np.ndarray, extra_costs: np.ndarray
+               ) -> tuple[float, list[int]]:
+        """Order-preserving DP. Returns total cost and per-unit name index (-1 = extra).
+        ``extra_costs[i]``: the cost of leaving unit i unmatched."""
         n, m = cost.shape
-        extra, skip = float(self.extra_cost), float(self.skip_cost_interior)
+        skip = float(self.skip_cost_interior)
         inf = math.inf
+        before = np.concatenate([[0.0], np.cumsum(extra_costs)])   # extras before a unit
         # A: no match yet (units so far are extras, names skipped free).
         # B[i, k]: i units and k names consumed, at least one match.
         B = np.full((n + 1, m + 1), inf)
@@ -640,10 +649,10 @@ class SequenceCorrelator:
         for i in range(1, n + 1):                        # 3 extra, 4 skip
             for k in range(1, m + 1):
                 best, mv = B[i - 1, k - 1] + cost[i - 1, k - 1], 1
-                c = (i - 1) * extra + cost[i - 1, k - 1]
+                c = before[i - 1] + cost[i - 1, k - 1]
                 if c < best:
                     best, mv = c, 2
-                c = B[i - 1, k] + extra
+                c = B[i - 1, k] + extra_costs[i - 1]
                 if c < best:
                     best, mv = c, 3
                 c = B[i, k - 1] + skip
@@ -653,8 +662,8 @@ class SequenceCorrelator:
         k_end = int(np.argmin(B[n])) if n else 0
         total = float(B[n, k_end]) if n else 0.0
         assigned = [-1] * n
-        if n == 0 or total >= n * extra:     # nothing matched is at least as good
-            return float(n * extra), assigned
+        if n == 0 or total >= before[n]:     # nothing matched is at least as good
+            return float(before[n]), assigned
         i, k = n, k_end
         while i > 0:
             mv = move[i, k]
@@ -699,11 +708,15 @@ class SequenceCorrelator:
                     starts.add(round(c, 9))
         best: tuple[float, float, float, list[int]] | None = None
         tried: dict[float, tuple[float, list[int]]] = {}
+        extra_costs = np.array([float(self.edge_fragment_cost)
+                                if u.is_cut and u.mfs_depth is None else float(self.extra_cost)
+                                for u in units])
         for c0 in sorted(starts, key=lambda c: (abs(c), c)):
             log_ratio = c0
             for it in range(self.scale_iterations + 1):
                 if log_ratio not in tried:
-                    tried[log_ratio] = self._align(self._cost_matrix(units, log_ratio))
+                    tried[log_ratio] = self._align(self._cost_matrix(units, log_ratio),
+                                                   extra_costs)
                 total, assigned = tried[log_ratio]
                 if it == self.scale_iterations:
                     break

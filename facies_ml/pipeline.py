@@ -266,6 +266,7 @@ class FaciesPipeline:
         named = all(all(n for n in v) for v in names.values())
         self.correlator_ = SequenceCorrelator(
             skip_cost_interior=float(c["skip_cost_interior"]), extra_cost=float(c["extra_cost"]),
+            edge_fragment_cost=float(c["edge_fragment_cost"]),
             feature_weights=c["feature_weights"],
             spread_prior_count=float(c["spread_prior_count"]),
             spread_floor_fraction=float(c["spread_floor_fraction"]),

@@ -35,9 +35,9 @@ STEP = 0.5   # ft
 
 
 def correlator(**over: object) -> SequenceCorrelator:
-    params: dict[str, object] = dict(skip_cost_interior=6.0, extra_cost=8.0, feature_weights=None,
-                                     spread_prior_count=1.0, spread_floor_fraction=0.1,
-                                     scale_iterations=2, max_thickness_ratio=1.6)
+    from facies_ml.config import load_config
+
+    params: dict[str, object] = dict(load_config().section("correlation"))  # project defaults
     params.update(over)
     return SequenceCorrelator(**params)  # type: ignore[arg-type]
 

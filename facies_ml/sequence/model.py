@@ -389,5 +389,5 @@ class TractSequenceModel:
         best = min(scored, key=lambda r: (abs(r["coverage"] - target_coverage)
                                           if np.isfinite(r["coverage"]) else 1.0,
                                           -r["mean_log_score"]))["evidence_weight"]
-        self.params_ = replace(p, evidence_weight=best, path_weight=best)
+        self.params_ = replace(p, evidence_weight=best, path_weight=best_path)
         return rows
