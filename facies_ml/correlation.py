@@ -86,6 +86,8 @@ class SequenceUnit:
     fingerprint: dict[str, float]
     first_sample: int = 0
     n_samples: int = 0
+    flood_complete: bool = True   # the whole TST + EHST is inside the log (a cut unit whose
+                                  # log edge falls inside it has a partial, biased flood part)
 
     @property
     def thickness(self) -> float:
@@ -244,10 +246,15 @@ def split_sequences(depth: np.ndarray, tracts: np.ndarray, curves: pd.DataFrame,
             "nphi_se": se("nphi", nphi[sl]),
             "nphi_flood_se": se("nphi", nphi[sl][fl]),
         }
-        units.append(SequenceUnit(base_depth=base, top_depth=top, base_is_log_edge=g_i == 0,
-                                  top_is_log_edge=g_i == len(groups) - 1, mfs_depth=mfs_depth,
+        base_edge, top_edge = g_i == 0, g_i == len(groups) - 1
+        complete = mfs_depth is not None and not (
+            (base_edge and run_tract[first] in flood_tracts)
+            or (top_edge and run_tract[last] in flood_tracts))
+        units.append(SequenceUnit(base_depth=base, top_depth=top, base_is_log_edge=base_edge,
+                                  top_is_log_edge=top_edge, mfs_depth=mfs_depth,
                                   tract_thickness=thick, fingerprint=fp, first_sample=s0,
-                                  n_samples=s1 - s0))
+                                  n_samples=s1 - s0,
+                                  flood_complete=complete or not (base_edge or top_edge)))
     return units
 
 
@@ -447,8 +454,13 @@ class SequenceCorrelator:
         return out
 
     @staticmethod
-    def _usable(unit: SequenceUnit, key: str) -> bool:
-        return not unit.is_cut or key in THICKNESS_FEATURES or key in EDGE_SAFE_FEATURES
+    def _usable(unit: SequenceUnit, key: str, for_stats: bool = False) -> bool:
+        """May ``key`` of ``unit`` be compared? A unit cut by the log edge keeps only its
+        flooding-part levels, and when the basin statistics are learned (``for_stats``) only if
+        its whole flooding part was logged, so a partial one does not bias the name's mean."""
+        if not unit.is_cut or key in THICKNESS_FEATURES:
+            return True
+        return key in EDGE_SAFE_FEATURES and (unit.flood_complete or not for_stats)
 
     # ---------------------------------------------------------------- fit
     def fit(self, named_wells: Mapping[str, list[SequenceUnit]],
@@ -529,7 +541,7 @@ class SequenceCorrelator:
                     for k in FEATURES:
                         if k in THICKNESS_FEATURES and u.is_cut:
                             continue                    # lower bound only
-                        if not self._usable(u, k) or not math.isfinite(f[k]):
+                        if not self._usable(u, k, for_stats=True) or not math.isfinite(f[k]):
                             continue
                         v = f[k] - offsets[w] if k in THICKNESS_FEATURES else f[k]
                         values[n][k].append(v)
@@ -759,8 +771,29 @@ class SequenceCorrelator:
                              "only: uncertain")
         if not matched and units:
             flags.append("no unit could be matched to a basin sequence")
+        names = [seq[k] if k >= 0 else "" for k in assigned]
+        # Sequences beyond the basin's list: a unit holding an MFS below a match to the oldest
+        # name, or above a match to the youngest, lies outside what the cored wells saw; it is
+        # named relative to it (S1-1, S8+1, ...), the same way in every well.
+        if matched:
+            i0 = assigned.index(min(matched))
+            i1 = len(assigned) - 1 - assigned[::-1].index(max(matched))
+            if min(matched) == 0:
+                for j, i in enumerate(range(i0 - 1, -1, -1), start=1):
+                    if names[i] or units[i].mfs_depth is None:
+                        break
+                    names[i] = f"{seq[0]}-{j}"
+                    flags.append(f"unit {i} lies below the oldest cored sequence {seq[0]}: "
+                                 f"named {names[i]}")
+            if max(matched) == len(seq) - 1:
+                for j, i in enumerate(range(i1 + 1, len(units)), start=1):
+                    if names[i] or units[i].mfs_depth is None:
+                        break
+                    names[i] = f"{seq[-1]}+{j}"
+                    flags.append(f"unit {i} lies above the youngest cored sequence {seq[-1]}: "
+                                 f"named {names[i]}")
         return CorrelationResult(
-            names=[seq[k] if k >= 0 else "" for k in assigned], skipped_interior=skipped,
+            names=names, skipped_interior=skipped,
             extra_units=extras, cost=total, flags=flags,
             unit_costs=[float(cost[i, k]) if k >= 0 else math.nan
                         for i, k in enumerate(assigned)],
