@@ -26,6 +26,7 @@ from facies_ml.lithofacies import reliability_table
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.sequence import pick_surfaces
 from facies_ml.sequence.runs import split_runs
+from facies_ml.sequence.surfaces import match_nearest
 from facies_ml.wells import Well
 
 PER_WELL_KEYS = (
@@ -120,16 +121,10 @@ def match_surfaces(true: Iterable[Any], pred: Iterable[Any], kind: str, toleranc
     p = [s for s in pred if s.kind == kind]
     if depth_range is not None:
         p = [s for s in p if depth_range[0] - tolerance <= s.depth <= depth_range[1] + tolerance]
-    pairs = sorted((abs(a.depth - b.depth), i, j) for i, a in enumerate(t)
-                   for j, b in enumerate(p))
-    ti: set[int] = set()
-    pj: set[int] = set()
+    pairs = match_nearest([a.depth for a in t], [b.depth for b in p], tolerance)
     errors, covered, named, name_checked, n_close = [], 0, 0, 0, 0
-    for dist, i, j in pairs:
-        if dist > tolerance or i in ti or j in pj:
-            continue
-        ti.add(i)
-        pj.add(j)
+    for i, j in pairs:
+        dist = abs(p[j].depth - t[i].depth)
         errors.append(float(p[j].depth - t[i].depth))
         n_close += dist <= close
         covered += int(min(p[j].depth_p10, p[j].depth_p90) <= t[i].depth
@@ -137,9 +132,10 @@ def match_surfaces(true: Iterable[Any], pred: Iterable[Any], kind: str, toleranc
         if t[i].sequence:
             name_checked += 1
             named += int(p[j].sequence == t[i].sequence)
-    return {"errors": errors, "missed": len(t) - len(ti), "extra": len(p) - len(pj),
+    return {"errors": errors, "missed": len(t) - len(pairs), "extra": len(p) - len(pairs),
             "n_true": len(t), "within_close": n_close, "covered": covered,
-            "named_right": named, "name_checked": name_checked}
+            "named_right": named, "name_checked": name_checked,
+            "pairs": [(t[i].sequence, p[j].sequence) for i, j in pairs]}
 
 
 def _share(num: Any, den: Any) -> float | None:
@@ -475,17 +471,8 @@ def score_tops(tops: pd.DataFrame, truth: pd.DataFrame, tolerance: float, close:
             errs += [abs(e) for e in m["errors"]]
             cover += m["covered"]
             matched += len(m["errors"])
-            pairs = sorted((abs(a.depth - b.depth), i, j) for i, a in enumerate(t)
-                           for j, b in enumerate(p))
-            ti: set[int] = set()
-            pj: set[int] = set()
-            for dist, i, j in pairs:
-                if dist > tolerance or i in ti or j in pj:
-                    continue
-                ti.add(i)
-                pj.add(j)
-                names.append(p[j].sequence)
-                trues.append(t[i].sequence)
+            trues += [a for a, _ in m["pairs"]]
+            names += [b for _, b in m["pairs"]]
         res[kind] = {"true": total, "within_close": close_n / total if total else None,
                      "missed": missed, "extra": extra / total if total else None,
                      "median_error_ft": float(np.median(errs)) if errs else None}

@@ -202,16 +202,8 @@ class FaciesPipeline:
         self.tract_subset_models_ = SubsetModels(
             partial(LithofaciesClassifier, **tract_params), E_all[has_t], yt[has_t], g[has_t],
             n_classes=n_tracts)
-        dur = seq["duration"]
-        self.sequence_model_ = TractSequenceModel(
-            self.rules_, duration_model=str(dur["model"]),
-            prior_count=float(seq["prior_count"]),
-            duration_prior_runs=float(dur["prior_runs"]),
-            duration_prior_log_sigma=float(dur["prior_log_sigma"]),
-            duration_log_sigma_floor=float(dur["log_sigma_floor"]),
-            evidence_weight=float(seq["evidence_weight"]),
-            decode_resolution=float(seq["decode_resolution"]),
-        ).fit(y_states, step=step, depth_unit=cfg.working_unit)
+        self.sequence_model_ = TractSequenceModel.from_settings(
+            self.rules_, seq).fit(y_states, step=step, depth_unit=cfg.working_unit)
         # held-out tract posteriors of each training well -> evidence weight
         wells_t = [k for k, y in enumerate(y_states) if (y >= 0).any()]
         held_post, held_lab, held_depth = [], [], []

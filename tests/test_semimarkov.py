@@ -359,13 +359,8 @@ def thick_model() -> TractSequenceModel:
             runs.append(np.full(int(np.exp(rng.normal(np.log(100), 0.25))), k))
             k = {LST: TST, TST: EHST, EHST: LHST}.get(k, LST if rng.random() < 0.6 else TST)
         wells.append(np.concatenate(runs)[::-1])          # fit takes TOP-DOWN labels
-    model = TractSequenceModel(RULES, duration_model="explicit",
-                               prior_count=float(seq_cfg["prior_count"]),
-                               duration_prior_runs=float(dur["prior_runs"]),
-                               duration_prior_log_sigma=float(dur["prior_log_sigma"]),
-                               duration_log_sigma_floor=float(dur["log_sigma_floor"]),
-                               evidence_weight=float(seq_cfg["evidence_weight"]),
-                               decode_resolution=float(seq_cfg["decode_resolution"]))
+    model = TractSequenceModel.from_settings(
+        RULES, {**seq_cfg, "duration": {**dur, "model": "explicit"}})
     return model.fit(wells, step=0.5, depth_unit="ft")
 
 

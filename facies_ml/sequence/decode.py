@@ -29,6 +29,7 @@ import numpy as np
 
 from facies_ml.errors import InputError
 from facies_ml.sequence.runs import split_runs
+from facies_ml.sequence.semimarkov import check_emissions
 
 _DEFAULT_BLOCK = 256
 _FB_BLOCK = 128                 # forward-backward time block (grows as sqrt(T) for long input)
@@ -48,19 +49,6 @@ class ExpandedModel:
     state_tract: np.ndarray
     first: np.ndarray
     last: np.ndarray
-
-
-def _as_emit(log_emit: np.ndarray, n: int) -> np.ndarray:
-    e = np.asarray(log_emit, dtype=float)
-    if e.ndim != 2 or e.shape[1] != n:
-        raise InputError(f"emission log-likelihoods must have shape (T, {n}), got {e.shape}")
-    if e.shape[0] == 0:
-        raise InputError("cannot decode an empty sequence (0 samples)")
-    bad = ~np.isfinite(e)
-    if bad.any():
-        r = int(np.flatnonzero(bad.any(axis=1))[0])
-        raise InputError("emission log-likelihood is not finite (NaN or infinite)", row=r)
-    return e
 
 
 def _check_model(log_start: np.ndarray, log_trans: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -145,7 +133,7 @@ def viterbi_durations(log_start: np.ndarray, log_stay: np.ndarray, log_switch: n
         raise InputError("duration model arrays do not agree on the number of tracts")
     if (m < 1).any():
         raise InputError("minimum durations must be at least 1 sample")
-    e = _as_emit(log_emit, n)
+    e = check_emissions(log_emit, n)
     T = e.shape[0]
     M = int(m.max()) - 1                     # history rows of pass-through (in-flight) scores
     pred, pw = _predecessors(sw)
@@ -296,7 +284,7 @@ def viterbi(log_start: np.ndarray, log_trans: np.ndarray, log_emit: np.ndarray, 
     """
     ls, lt = _check_model(log_start, log_trans)
     n = ls.shape[0]
-    e = _as_emit(log_emit, n)
+    e = check_emissions(log_emit, n)
     sw = lt.copy()
     np.fill_diagonal(sw, -np.inf)
     path, _ = viterbi_durations(ls, np.diag(lt).copy(), sw, np.ones(n, dtype=int), e,
@@ -601,7 +589,7 @@ def forward_backward(log_start: np.ndarray, log_trans: np.ndarray,
     """
     ls, lt = _check_model(log_start, log_trans)
     n = ls.shape[0]
-    e = _as_emit(log_emit, n)
+    e = check_emissions(log_emit, n)
     sw = lt.copy()
     np.fill_diagonal(sw, -np.inf)
     return _chain_forward_backward(ls, np.diag(lt).copy(), sw, np.ones(n, dtype=int), e)
@@ -621,6 +609,6 @@ def forward_backward_durations(log_start: np.ndarray, log_stay: np.ndarray,
         raise InputError("duration model arrays do not agree on the number of tracts")
     if (m < 1).any():
         raise InputError("minimum durations must be at least 1 sample")
-    e = _as_emit(log_emit, n)
+    e = check_emissions(log_emit, n)
     np.fill_diagonal(sw, -np.inf)
     return _chain_forward_backward(ls, a, sw, m, e)

@@ -28,7 +28,7 @@ from facies_ml.sequence.semimarkov import (
     forward_backward_semimarkov,
     viterbi_semimarkov,
 )
-from facies_ml.sequence.surfaces import Surface, SurfaceChecks, pick_surfaces
+from facies_ml.sequence.surfaces import Surface, SurfaceChecks, match_nearest, pick_surfaces
 
 
 @dataclass(frozen=True, eq=False)
@@ -141,6 +141,18 @@ class TractSequenceModel:
         self.duration_log_sigma_floor = duration_log_sigma_floor
         self.evidence_weight = evidence_weight
         self.decode_resolution = decode_resolution
+
+    @classmethod
+    def from_settings(cls, rules: TractRules, settings: dict) -> TractSequenceModel:
+        """A model with the parameters of the ``sequence:`` section of the project settings."""
+        dur = settings["duration"]
+        return cls(rules, duration_model=str(dur["model"]),
+                   prior_count=float(settings["prior_count"]),
+                   duration_prior_runs=float(dur["prior_runs"]),
+                   duration_prior_log_sigma=float(dur["prior_log_sigma"]),
+                   duration_log_sigma_floor=float(dur["log_sigma_floor"]),
+                   evidence_weight=float(settings["evidence_weight"]),
+                   decode_resolution=float(settings["decode_resolution"]))
 
     # ------------------------------------------------------------------ training
     def fit(self, labels_topdown: list[np.ndarray], step: float,
@@ -372,15 +384,8 @@ class TractSequenceModel:
                 for kind in ("MFS", "SB"):
                     t = [x for x in true_surf if x.kind == kind]
                     q = [x for x in picked if x.kind == kind]
-                    pairs = sorted((abs(a.depth - b.depth), i, j) for i, a in enumerate(t)
-                                   for j, b in enumerate(q))
-                    ti: set[int] = set()
-                    qj: set[int] = set()
-                    for dist, i, j in pairs:
-                        if dist > match_tolerance or i in ti or j in qj:
-                            continue
-                        ti.add(i)
-                        qj.add(j)
+                    for i, j in match_nearest([x.depth for x in t], [x.depth for x in q],
+                                              match_tolerance):
                         matched += 1
                         covered += int(q[j].depth_p10 <= t[i].depth <= q[j].depth_p90)
             row["mean_log_score"] = log_score / sum(x[1].size for x in wells)

@@ -129,6 +129,25 @@ def _check(depth: np.ndarray, path: np.ndarray, n: int, gr: np.ndarray | None,
         raise InputError(f"tract index {int(path[r])} is outside 0..{n - 1}", row=r)
 
 
+def match_nearest(true_depths: list[float], pred_depths: list[float], tolerance: float
+                  ) -> list[tuple[int, int]]:
+    """One-to-one pairs ``(i_true, j_pred)`` matched nearest first within ``tolerance`` (the
+    rule of the product owner's scorer ``../shared/tools/score_picks.py``); used by the
+    evaluation and by the evidence-weight calibration."""
+    order = sorted((abs(a - b), i, j) for i, a in enumerate(true_depths)
+                   for j, b in enumerate(pred_depths))
+    ti: set[int] = set()
+    pj: set[int] = set()
+    pairs = []
+    for dist, i, j in order:
+        if dist > tolerance or i in ti or j in pj:
+            continue
+        ti.add(i)
+        pj.add(j)
+        pairs.append((i, j))
+    return pairs
+
+
 def pick_surfaces(depth: np.ndarray, path: np.ndarray, rules: TractRules,
                   entry: np.ndarray | None = None, gr: np.ndarray | None = None,
                   checks: SurfaceChecks | None = None) -> list[Surface]:
