@@ -22,6 +22,7 @@ import time
 import numpy as np
 from hmmlearn.base import BaseHMM
 
+from facies_ml.config import load_config
 from facies_ml.sequence.decode import (
     _forward_backward,
     expand_durations,
@@ -169,9 +170,10 @@ def semi_markov(T: int, emit: np.ndarray, A: np.ndarray, start: np.ndarray, medi
     print(f"    viterbi  ours {T / t_v:12,.0f} samples/s  ({t_v:.2f} s)")
     print(f"    fwd-bwd  ours {T / t_f:12,.0f} samples/s  ({t_f:.2f} s)")
     print(f"    decode = viterbi + posteriors: {T / (t_v + t_f):,.0f} samples/s")
-    # what predictions run: 2-sample blocks (sequence.decode_resolution 1 ft at 0.5 ft steps),
-    # emissions summed per block, thicknesses in whole blocks (boundary refinement not timed)
-    k = 2
+    # what predictions run: blocks of sequence.decode_resolution (configs/default.yaml) at the
+    # 0.5 ft step, emissions summed per block, thicknesses in whole blocks (the boundary
+    # refinement to the sample is not timed)
+    k = max(1, round(float(load_config().section("sequence")["decode_resolution"]) / 0.5))
     Tc = T // k
     e_c = emit[:Tc * k].reshape(Tc, k, n).sum(axis=1)
     tb_c = params.tables(Tc, k)
