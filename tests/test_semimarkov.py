@@ -85,6 +85,17 @@ CASES = [(seed, n, D, T) for seed, (n, D, T) in enumerate(
      (5, 6, 40)])]
 
 
+def assert_equal_reference(tb, e: np.ndarray, ref_ll: float) -> None:  # noqa: ANN001
+    """Fast Viterbi path / log-prob, log-likelihood and occupancy equal the reference."""
+    path, lp = viterbi_semimarkov(tb, e)
+    ref_path, ref_lp = reference_viterbi(tb, e)
+    np.testing.assert_array_equal(path, ref_path)
+    assert lp == pytest.approx(ref_lp, rel=1e-10, abs=1e-10)
+    fb = forward_backward_semimarkov(tb, e)
+    assert fb.log_likelihood == pytest.approx(ref_ll, rel=1e-10, abs=1e-10)
+    np.testing.assert_allclose(fb.occupancy, reference_occupancy(tb, e), atol=1e-9)
+
+
 @pytest.mark.parametrize("seed,n,D,T", CASES)
 @pytest.mark.parametrize("arbitrary", [False, True])
 def test_fast_kernels_equal_reference(seed: int, n: int, D: int, T: int, arbitrary: bool) -> None:
@@ -99,13 +110,7 @@ def test_fast_kernels_equal_reference(seed: int, n: int, D: int, T: int, arbitra
         with pytest.raises(InputError, match="no tract path"):
             forward_backward_semimarkov(tb, e)
         return
-    path, lp = viterbi_semimarkov(tb, e)
-    ref_path, ref_lp = reference_viterbi(tb, e)
-    np.testing.assert_array_equal(path, ref_path)
-    assert lp == pytest.approx(ref_lp, rel=1e-10, abs=1e-10)
-    fb = forward_backward_semimarkov(tb, e)
-    assert fb.log_likelihood == pytest.approx(ref_ll, rel=1e-10, abs=1e-10)
-    np.testing.assert_allclose(fb.occupancy, reference_occupancy(tb, e), atol=1e-9)
+    assert_equal_reference(tb, e, ref_ll)
 
 
 def test_many_random_models_equal_reference() -> None:
@@ -120,13 +125,7 @@ def test_many_random_models_equal_reference() -> None:
         ref_ll = reference_log_likelihood(tb, e)
         if not np.isfinite(ref_ll):
             continue
-        path, lp = viterbi_semimarkov(tb, e)
-        ref_path, ref_lp = reference_viterbi(tb, e)
-        np.testing.assert_array_equal(path, ref_path)
-        assert lp == pytest.approx(ref_lp, rel=1e-10, abs=1e-10)
-        fb = forward_backward_semimarkov(tb, e)
-        assert fb.log_likelihood == pytest.approx(ref_ll, rel=1e-10, abs=1e-10)
-        np.testing.assert_allclose(fb.occupancy, reference_occupancy(tb, e), atol=1e-9)
+        assert_equal_reference(tb, e, ref_ll)
         checked += 1
     assert checked >= 40
 
