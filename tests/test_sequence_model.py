@@ -27,16 +27,9 @@ MEDIANS = np.array([30.0, 50.0, 80.0, 120.0])  # true median run thickness (samp
 
 
 def settings_kwargs(**over: Any) -> dict[str, Any]:
-    """Constructor arguments from configs/default.yaml (sequence:)."""
-    seq = load_config().section("sequence")
-    dur = seq["duration"]
-    kw: dict[str, Any] = dict(duration_model=str(dur["model"]),
-                              prior_count=float(seq["prior_count"]),
-                              duration_prior_runs=float(dur["prior_runs"]),
-                              duration_prior_log_sigma=float(dur["prior_log_sigma"]),
-                              duration_log_sigma_floor=float(dur["log_sigma_floor"]),
-                              evidence_weight=float(seq["evidence_weight"]),
-                              decode_resolution=float(seq["decode_resolution"]))
+    """Constructor arguments from configs/default.yaml (sequence:), optionally overridden."""
+    model = TractSequenceModel.from_settings(RULES, load_config().section("sequence"))
+    kw: dict[str, Any] = {k: v for k, v in vars(model).items() if k != "rules"}
     kw.update(over)
     return kw
 
