@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 
 from facies_ml.cli import main
+from facies_ml.config import load_config
 
 REQUIRED_KEYS = ("lithofacies_accuracy", "lithofacies_f1_macro", "systems_tract_accuracy",
                  "systems_tract_accuracy_raw", "mfs_depth_error", "sb_depth_error",
@@ -87,9 +88,24 @@ def test_train_predict_outputs(trained, tiny_basin, tmp_path, capsys):
     p_cols = [k for k in las.keys() if k.startswith("P_")]
     probs = np.column_stack([las[k] for k in p_cols[:6]])
     assert np.allclose(probs.sum(axis=1), 1.0, atol=1e-3)
-    tops = pd.read_csv(out / "tops.csv", comment="#")
+    tops = pd.read_csv(out / "tops.csv", comment="#", keep_default_na=False)
     assert set(tops["surface"]) <= {"SB", "MFS"}
     assert (tops["depth_p10"] <= tops["depth_p90"]).all()
+    assert (tops["depth_p10"] <= tops["depth"]).all() and (tops["depth"] <= tops["depth_p90"]).all()
+    assert tops["confidence"].between(0.0, 1.0).all()
+    # basin-wide names from the core file's S<k> names: one name per sequence and well, the
+    # MFS of a sequence lying above its SB (depth increases downward)
+    named = tops[tops["sequence"] != ""]
+    assert len(named) > 0 and named["sequence"].str.fullmatch(r"S\d+(\+\d+|-\d+)?").all()
+    for (_, _), g in named.groupby(["well", "sequence"]):
+        kinds = dict(zip(g["surface"], g["depth"], strict=False))
+        if len(g) == 2 and set(kinds) == {"SB", "MFS"}:
+            assert kinds["MFS"] < kinds["SB"]
+    # a pick with low confidence carries a flag to review
+    low = tops["confidence"] < load_config().section("sequence")["checks"]["low_confidence"]
+    assert (tops.loc[low, "flags"] != "").all()
+    out_text = capsys.readouterr().out
+    assert all(f"review: {w}:" in out_text for w in tops.loc[tops["flags"] != "", "well"])
     assert (out / "report.html").stat().st_size > 10_000
     assert (out / "figures" / "correlation_panel.png").is_file()
     assert (out / "landing_zones.csv").is_file()
