@@ -44,7 +44,11 @@ from facies_ml.sequence.runs import split_runs
 THICKNESS_FEATURES = ("thickness", "flood_thickness")
 LEVEL_FEATURES = ("log10_rt", "log10_rt_flood", "rhob", "rhob_flood", "nphi", "nphi_flood",
                   "flood_fraction", "gr_flood_contrast")
-FEATURES = THICKNESS_FEATURES + LEVEL_FEATURES
+# MFS-to-MFS spacing below a unit (depth units): bounded by the two best-picked surfaces, so it
+# is complete even in a unit cut by the log edge; compared in log after the well's ratio.
+SPACING_FEATURES = ("mfs_spacing",)
+LOG_FEATURES = THICKNESS_FEATURES + SPACING_FEATURES
+FEATURES = THICKNESS_FEATURES + SPACING_FEATURES + LEVEL_FEATURES
 # Features that stay meaningful for a unit cut by a log edge (levels of the flooding part);
 # whole-unit means, the flooding fraction and the GR contrast depend on the missing part.
 EDGE_SAFE_FEATURES = ("log10_rt_flood", "rhob_flood", "nphi_flood")
@@ -255,6 +259,11 @@ def split_sequences(depth: np.ndarray, tracts: np.ndarray, curves: pd.DataFrame,
                                   tract_thickness=thick, fingerprint=fp, first_sample=s0,
                                   n_samples=s1 - s0,
                                   flood_complete=complete or not (base_edge or top_edge)))
+    for below, unit in zip(units[:-1], units[1:], strict=True):
+        if below.mfs_depth is not None and unit.mfs_depth is not None:
+            unit.fingerprint["mfs_spacing"] = below.mfs_depth - unit.mfs_depth
+    for unit in units:
+        unit.fingerprint.setdefault("mfs_spacing", math.nan)
     return units
 
 
@@ -448,7 +457,7 @@ class SequenceCorrelator:
         out = {}
         for k in FEATURES:
             v = float(unit.fingerprint.get(k, math.nan))
-            if k in THICKNESS_FEATURES:
+            if k in LOG_FEATURES:
                 v = math.log(v) if v > 0 else math.nan
             out[k] = v
         return out
@@ -458,7 +467,7 @@ class SequenceCorrelator:
         """May ``key`` of ``unit`` be compared? A unit cut by the log edge keeps only its
         flooding-part levels, and when the basin statistics are learned (``for_stats``) only if
         its whole flooding part was logged, so a partial one does not bias the name's mean."""
-        if not unit.is_cut or key in THICKNESS_FEATURES:
+        if not unit.is_cut or key in LOG_FEATURES:
             return True
         return key in EDGE_SAFE_FEATURES and (unit.flood_complete or not for_stats)
 
@@ -543,7 +552,7 @@ class SequenceCorrelator:
                             continue                    # lower bound only
                         if not self._usable(u, k, for_stats=True) or not math.isfinite(f[k]):
                             continue
-                        v = f[k] - offsets[w] if k in THICKNESS_FEATURES else f[k]
+                        v = f[k] - offsets[w] if k in LOG_FEATURES else f[k]
                         values[n][k].append(v)
             for n in self.sequence_names_:
                 means[n] = {k: float(np.mean(v)) if v else math.nan for k, v in values[n].items()}
@@ -621,9 +630,10 @@ class SequenceCorrelator:
         sd = np.array([[self.spreads_[q][k] for k in FEATURES] for q in seq])
         w = np.array([self.weights_[k] for k in FEATURES])
         thick = np.array([k in THICKNESS_FEATURES for k in FEATURES])
+        logged = np.array([k in LOG_FEATURES for k in FEATURES])
         se = np.array([[u.fingerprint.get(f"{k}_se", 0.0) for k in FEATURES] for u in units])
         se = np.where(np.isfinite(se), se, 0.0)
-        x = np.where(thick[None, :], x - log_ratio, x)
+        x = np.where(logged[None, :], x - log_ratio, x)
         scale = np.sqrt(sd[None, :, :] ** 2 + se[:, None, :] ** 2)
         with np.errstate(invalid="ignore", divide="ignore"):
             z = (x[:, None, :] - mu[None, :, :]) / scale                     # (n, m, nf)

@@ -178,6 +178,9 @@ def test_split_sequences_hand_built_column() -> None:
     assert u2.mfs_depth == 984.5
     assert u2.tract_thickness["TST"] == 2.0 and u2.tract_thickness["EHST"] == 3.5
     assert (u1.first_sample, u1.n_samples) == (4, 10)
+    # MFS-to-MFS spacing below a unit: defined where the unit and the one below hold an MFS
+    assert u2.fingerprint["mfs_spacing"] == 991.5 - 984.5
+    assert np.isnan(u1.fingerprint["mfs_spacing"]) and np.isnan(u0.fingerprint["mfs_spacing"])
 
 
 def test_gr_contrast_is_invariant_to_gain_and_offset() -> None:
