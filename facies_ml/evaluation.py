@@ -28,6 +28,7 @@ from facies_ml.sequence import pick_surfaces
 from facies_ml.sequence.runs import split_runs
 from facies_ml.sequence.surfaces import match_nearest
 from facies_ml.wells import Well
+from facies_ml.wells.model import FT_PER_M
 
 PER_WELL_KEYS = (
     "lithofacies_accuracy",
@@ -192,8 +193,7 @@ def score_well(pred: WellPrediction, labels: pd.DataFrame, pipeline: FaciesPipel
                               "name_checked"):
                     out[f"{key}_{field}"] = m[field]
                 out[f"{key}_true_count"] = m["n_true"]
-                out[f"{key}_within_close_share"] = (m["within_close"] / m["n_true"]
-                                                    if m["n_true"] else None)
+                out[f"{key}_within_close_share"] = _share(m["within_close"], m["n_true"])
             matched = len(out["mfs_errors"]) + len(out["sb_errors"])
             out["p10_p90_coverage"] = _share(out["mfs_covered"] + out["sb_covered"], matched)
             out["names_right_share"] = _share(out["mfs_named_right"] + out["sb_named_right"],
@@ -224,13 +224,12 @@ def overall_metrics(per_well: dict[str, dict[str, Any]], pooled: dict[str, Any])
                       "name_checked", "true_count"):
             out[f"{kind}_{field}"] = total(f"{kind}_{field}")
         n = out[f"{kind}_true_count"]
-        out[f"{kind}_within_close_share"] = out[f"{kind}_within_close"] / n if n else None
+        out[f"{kind}_within_close_share"] = _share(out[f"{kind}_within_close"], n)
     matched = sum(len(m.get(f"{k}_errors", [])) for m in per_well.values() for k in ("mfs", "sb"))
     covered = out["mfs_covered"] + out["sb_covered"]
     checked = out["mfs_name_checked"] + out["sb_name_checked"]
-    out["p10_p90_coverage"] = covered / matched if matched else None
-    out["names_right_share"] = ((out["mfs_named_right"] + out["sb_named_right"]) / checked
-                                if checked else None)
+    out["p10_p90_coverage"] = _share(covered, matched)
+    out["names_right_share"] = _share(out["mfs_named_right"] + out["sb_named_right"], checked)
     for key in ("rule_violations", "rule_violations_raw"):
         out[key] = int(sum(m.get(key) or 0 for m in per_well.values()))
     thick = [m["tst_ehst_thickness_error"] for m in per_well.values()
@@ -303,21 +302,14 @@ def format_table(metrics: dict[str, Any]) -> str:
     and after the sequence model, SB and MFS picked within the close tolerance (share of the
     true surfaces), missed / extra picks, median depth error, p10-p90 coverage of matched
     picks and the share of matched surfaces given the right sequence name."""
-    cols = [("facies_acc", lambda m: m.get("lithofacies_accuracy")),
-            ("facies_F1", lambda m: m.get("lithofacies_f1_macro")),
-            ("tract_raw", lambda m: m.get("systems_tract_accuracy_raw")),
-            ("tract_hmm", lambda m: m.get("systems_tract_accuracy")),
-            ("MFS_5ft", lambda m: m.get("mfs_within_close_share")),
-            ("MFS_miss", lambda m: m.get("mfs_missed")),
-            ("MFS_extra", lambda m: m.get("mfs_extra")),
-            ("MFS_err", lambda m: m.get("mfs_depth_error")),
-            ("SB_5ft", lambda m: m.get("sb_within_close_share")),
-            ("SB_miss", lambda m: m.get("sb_missed")),
-            ("SB_extra", lambda m: m.get("sb_extra")),
-            ("SB_err", lambda m: m.get("sb_depth_error")),
-            ("p10_p90", lambda m: m.get("p10_p90_coverage")),
-            ("names", lambda m: m.get("names_right_share")),
-            ("viol", lambda m: m.get("rule_violations"))]
+    cols = [("facies_acc", "lithofacies_accuracy"), ("facies_F1", "lithofacies_f1_macro"),
+            ("tract_raw", "systems_tract_accuracy_raw"), ("tract_hmm", "systems_tract_accuracy"),
+            ("MFS_5ft", "mfs_within_close_share"), ("MFS_miss", "mfs_missed"),
+            ("MFS_extra", "mfs_extra"), ("MFS_err", "mfs_depth_error"),
+            ("SB_5ft", "sb_within_close_share"), ("SB_miss", "sb_missed"),
+            ("SB_extra", "sb_extra"), ("SB_err", "sb_depth_error"),
+            ("p10_p90", "p10_p90_coverage"), ("names", "names_right_share"),
+            ("viol", "rule_violations")]
     head = f"{'well':<12}" + "".join(f"{short:>10}" for short, _ in cols)
     lines = [head, "-" * len(head)]
 
@@ -330,7 +322,7 @@ def format_table(metrics: dict[str, Any]) -> str:
 
     rows = list(metrics["wells"].items()) + [("OVERALL", metrics["overall"])]
     for name, m in rows:
-        lines.append(f"{name:<12}" + "".join(fmt(get(m)) for _, get in cols))
+        lines.append(f"{name:<12}" + "".join(fmt(m.get(key)) for _, key in cols))
     lines.append("5ft: share of true surfaces picked within the close tolerance; err: median "
                  "|depth error| of matched picks; p10_p90: share of matched picks whose range "
                  "holds the true depth; names: matched surfaces with the right sequence name.")
@@ -441,7 +433,7 @@ def score_tops(tops: pd.DataFrame, truth: pd.DataFrame, tolerance: float, close:
         f = frame.copy()
         unit = (f["depth_unit"].astype(str).str.lower() if "depth_unit" in f
                 else pd.Series("ft", index=f.index))
-        factor = np.where(unit.str.startswith("m"), 1.0 / 0.3048, 1.0)
+        factor = np.where(unit.str.startswith("m"), FT_PER_M, 1.0)
         for c in cols:
             f[c] = pd.to_numeric(f[c], errors="coerce") * factor
         return f

@@ -223,20 +223,11 @@ class FaciesPipeline:
                     [float(w) for w in seq["evidence_weight_grid"]],
                     target_coverage=float(seq["target_coverage"]),
                     match_tolerance=float(cfg.section("evaluation")["surface_match_tolerance"]))
-        ch = seq["checks"]
-        self.surface_checks_ = SurfaceChecks(
-            mfs_gr_window=float(ch["mfs_gr_window"]), gr_smoothing=float(ch["gr_smoothing"]),
-            sb_trend_window=float(ch["sb_trend_window"]),
-            confidence_tolerance=float(ch["confidence_tolerance"]),
-            depth_from=str(ch["depth_from"]),
-            edge_run_min=float(ch["edge_run_min"]),
-            low_confidence=float(ch["low_confidence"]),
-            failed_check_confidence=float(ch["failed_check_confidence"]))
+        self.surface_checks_ = SurfaceChecks(**seq["checks"])    # checked in __post_init__
 
     def _fit_correlation(self, wells: list[Well], labels: list[pd.DataFrame]) -> None:
         """The basin's ordered sequence list from the cored wells' interpreted tracts and the
         core file's sequence names (numbered by the tool when the core file has none)."""
-        c = self.config.section("correlation")
         units: dict[str, list[SequenceUnit]] = {}
         names: dict[str, list[str]] = {}
         for w, lab in zip(wells, labels, strict=True):
@@ -256,15 +247,8 @@ class FaciesPipeline:
         if not units:
             return
         named = all(all(n for n in v) for v in names.values())
-        self.correlator_ = SequenceCorrelator(
-            skip_cost_interior=float(c["skip_cost_interior"]), extra_cost=float(c["extra_cost"]),
-            edge_fragment_cost=float(c["edge_fragment_cost"]),
-            feature_weights=c["feature_weights"],
-            spread_prior_count=float(c["spread_prior_count"]),
-            spread_floor_fraction=float(c["spread_floor_fraction"]),
-            scale_iterations=int(c["scale_iterations"]),
-            max_thickness_ratio=float(c["max_thickness_ratio"]),
-        ).fit(units, names if named else None)
+        self.correlator_ = SequenceCorrelator(**self.config.section("correlation")).fit(
+            units, names if named else None)                 # settings checked in fit
 
     def name_sequences(self, well: Well, path: np.ndarray, surfaces: list[Surface]
                        ) -> tuple[list[Surface], list[str], list[str]]:
