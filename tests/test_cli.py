@@ -94,7 +94,8 @@ def test_train_predict_outputs(trained, tiny_basin, tmp_path, capsys):
     assert (tops["depth_p10"] <= tops["depth"]).all() and (tops["depth"] <= tops["depth_p90"]).all()
     assert tops["confidence"].between(0.0, 1.0).all()
     # basin-wide names from the core file's S<k> names: one name per sequence and well, the
-    # MFS of a sequence lying above its SB (depth increases downward)
+    # MFS of a sequence lying above its SB (common practice: the SB bounds the sequence at its
+    # base; depth increases downward)
     named = tops[tops["sequence"] != ""]
     assert len(named) > 0 and named["sequence"].str.fullmatch(r"S\d+(\+\d+|-\d+)?").all()
     for (_, _), g in named.groupby(["well", "sequence"]):

@@ -337,7 +337,7 @@ class TractSequenceModel:
         - ``evidence_weight`` (posteriors, surface ranges, confidence): the share of held-out
           true surfaces matched within ``match_tolerance`` whose p10-p90 range holds the true
           depth comes closest to ``target_coverage`` (ties: the better mean log posterior of
-          the true tract, a proper score, Gneiting & Raftery 2007).
+          the true tract, a proper score, Gneiting & Raftery 2007, from memory).
 
         Sets both in ``params_`` and returns the scores per weight."""
         p = self._check_fitted()

@@ -2,9 +2,10 @@
 
 Same model and conventions as :mod:`facies_ml.sequence.semimarkov` (decoding order, index 0 =
 first sample; for tracts UP-SECTION). Each quantity is the textbook recursion written out
-sample by sample, tract by tract, duration by duration (Yu 2010, "Hidden semi-Markov models",
-Artificial Intelligence 174, section 2), in plain Python floats. Used only by the tests and the
-decoder benchmark to check the vectorized kernels; never in a prediction.
+sample by sample, tract by tract, duration by duration (Yu 2010, "Hidden semi-Markov
+models", Artificial Intelligence 174, section 2; from memory), in plain Python floats. Used
+only by the tests and the decoder benchmark to check the vectorized kernels; never in a
+prediction.
 """
 
 from __future__ import annotations

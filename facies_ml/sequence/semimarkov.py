@@ -4,7 +4,7 @@ All arrays are in decoding order: index 0 is the first sample. For systems tract
 passes samples UP-SECTION (index 0 = deepest sample), so the "first run" is the tract the log
 starts in at its base and the "last run" the one it ends in at its top.
 
-The model (Ferguson 1980; Yu 2010, "Hidden semi-Markov models", Artificial Intelligence 174):
+The model (Ferguson 1980; Yu 2010, "Hidden semi-Markov models", Artificial Intelligence 174; from memory):
 a path is a series of runs (tract ``j``, duration ``d`` samples). Its log-probability is
 
     log_start[j1] + log_first[j1, d1] + sum_r (log_switch[j(r-1), j(r)] + log_pmf[j(r), d(r)])
