@@ -12,8 +12,9 @@ from typing import Any
 import yaml
 
 from facies_ml.errors import InputError
+from facies_ml.resources import config_dir
 
-CONFIG_DIR = Path(__file__).resolve().parent.parent / "configs"
+CONFIG_DIR = config_dir()  # bundled configs/ (repository folder, or inside an installed package)
 DEFAULT_CONFIG = CONFIG_DIR / "default.yaml"
 
 

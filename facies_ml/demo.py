@@ -24,11 +24,9 @@ from facies_ml.evaluation import (
 )
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.outputs import write_json, write_table
+from facies_ml.resources import demo_wells_dir
 from facies_ml.store import save_version
 from facies_ml.wells.clean import nearest_samples
-
-DEMO_WELLS = Path(__file__).resolve().parent.parent / "synthetic_wells"
-
 
 CORE_ROLES = ("gr_api", "rt_ohmm", "rhob_g_cc", "nphi_v_v", "pe_b_e", "dtc_us_ft", "cali_in",
               "bs_in")
@@ -105,7 +103,7 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
              progress: api.Progress = None) -> dict[str, Any]:
     """Run the whole job on the demo basin and print a summary; returns the figures."""
     t0 = time.perf_counter()
-    wells_dir = Path(wells_dir) if wells_dir else DEMO_WELLS
+    wells_dir = Path(wells_dir) if wells_dir else demo_wells_dir()
     out = Path(out)
     cfg = load_config()
     core = wells_dir / "core_intervals.csv"
