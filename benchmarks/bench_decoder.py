@@ -1,6 +1,6 @@
 """Decoder timing: our Viterbi / forward-backward vs hmmlearn on the same models.
 
-Prints figures only (no assertions). Run: /work/venv/bin/python benchmarks/bench_decoder.py
+Prints figures only (no assertions). Run: .venv/bin/python benchmarks/bench_decoder.py
 Models: (a) 4 plain tract states; (b) 4 tracts x 20 sub-states (minimum-duration chains,
 80 states), decoded by our chain decoder and by hmmlearn's dense decoder of the same
 expanded model. Emissions: a blocky synthetic truth plus Gaussian noise, seed 0. Forward-backward is also

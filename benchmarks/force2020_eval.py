@@ -1,8 +1,9 @@
 """Leave-one-well-out lithology evaluation on the open FORCE 2020 wells.
 
-Data: /work/shared/data/force2020 (8 labelled Norwegian North Sea wells; licence NLOD 2.0 for
-the logs and CC BY 4.0 for the labels, see SOURCE.md there). Citation: Bormann P., Aursand P.,
-Dilib F., Dischington P., Manral S. 2020. FORCE Machine Learning Competition.
+Data: ../shared/data/force2020 beside the checkout (8 labelled Norwegian North Sea wells;
+licence NLOD 2.0 for the logs and CC BY 4.0 for the labels, see SOURCE.md there).
+Citation: Bormann P., Aursand P., Dilib F., Dischington P., Manral S. 2020.
+FORCE Machine Learning Competition.
 "Lithofacies data was provided by the FORCE Machine Learning competition with well logs and
 seismic 2020".
 
@@ -44,7 +45,7 @@ from sklearn.metrics import accuracy_score, f1_score
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
-from facies_ml.config import CONFIG_DIR, Config, load_config
+from facies_ml.config import CONFIG_DIR, Config, load_config, read_yaml
 from facies_ml.errors import InputError
 from facies_ml.features import build_features, feature_reference
 from facies_ml.lithofacies import (
@@ -56,13 +57,26 @@ from facies_ml.lithofacies import (
 from facies_ml.wells import GRNormalizer, Well
 
 FORCE_CONFIG = CONFIG_DIR / "force2020.yaml"
+DATASET_SETTINGS = Path(__file__).resolve().with_name("force2020_dataset.yaml")
+
+
+def dataset_settings() -> dict[str, Any]:
+    """How this benchmark reads the FORCE 2020 files (columns, label column, data folder) and
+    its own choices (decision rule, GR normalization, sample thinning), from
+    ``benchmarks/force2020_dataset.yaml``; ``data_dir`` resolved against that file's folder."""
+    fc = read_yaml(DATASET_SETTINGS)
+    fc["data_dir"] = str((DATASET_SETTINGS.parent / fc["data_dir"]).resolve())
+    return fc
+
+
+FC = dataset_settings()
 PUBLISHED_WINNER = -0.469   # blind-test score of the winning entry (SOURCE.md); other wells
 
 
 def load_force_well(path: Path, config: Config) -> tuple[str, pd.DataFrame, np.ndarray]:
     """(well name, curves in canonical roles indexed by depth m top-down, class index per
     sample with -1 = unlabelled) read directly from one FORCE CSV file."""
-    fc = config.section("force2020")
+    fc = FC
     try:
         df = pd.read_csv(path, low_memory=False)
     except (OSError, pd.errors.ParserError) as exc:
@@ -105,7 +119,7 @@ def load_force_well_project(path: Path, config: Config
     same CSV and placed on the intake depth grid at the nearest sample within half a step."""
     from facies_ml.wells import read_table
 
-    fc = config.section("force2020")
+    fc = FC
     name, _, y_raw = load_force_well(path, config)
     wells = read_table(path, config, well_column=fc["well_column"],
                        depth_column=fc["depth_column"], depth_unit="m")
@@ -125,8 +139,8 @@ def load_wells(config: Config, data_dir: Path | None = None, reader: str = "csv"
                ) -> list[tuple[str, pd.DataFrame, np.ndarray]]:
     """All FORCE wells of ``data_dir`` in file-name order. ``reader``: "csv" reads the columns
     named in ``force2020.columns`` directly; "project" uses the project intake."""
-    d = Path(data_dir or config.section("force2020")["data_dir"])
-    skip = {config.section("force2020")["penalty_matrix"]}
+    d = Path(data_dir or FC["data_dir"])
+    skip = {FC["penalty_matrix"]}
     files = sorted(f for f in d.glob("*.csv") if f.name not in skip)
     if not files:
         raise InputError("no CSV files found", file=str(d))
@@ -187,7 +201,7 @@ def evaluate(config: Config, wells: list[tuple[str, pd.DataFrame, np.ndarray]],
     "ours_argmax" and "ours_bayes" are always scored; "ours" is the configured one. Baselines
     see the raw (un-normalized) curves. Returns per-fold rows and pooled figures per method.
     """
-    fc = config.section("force2020")
+    fc = FC
     cost = pd.read_csv(Path(fc["data_dir"]) / fc["penalty_matrix"], index_col=0).to_numpy()
     k = len(config.facies.classes)
     if cost.shape != (k, k):

@@ -13,6 +13,7 @@ import yaml
 
 from facies_ml.errors import InputError
 from facies_ml.resources import config_dir
+from facies_ml.settings import Settings, check_settings
 
 CONFIG_DIR = config_dir()  # bundled configs/ (repository folder, or inside an installed package)
 DEFAULT_CONFIG = CONFIG_DIR / "default.yaml"
@@ -122,13 +123,18 @@ def load_facies_scheme(path: str | Path) -> FaciesScheme:
 
 @dataclass
 class Config:
-    """Project settings plus the loaded facies scheme. ``raw`` is the merged YAML mapping."""
+    """Project settings plus the loaded facies scheme. ``raw`` is the merged YAML mapping;
+    ``settings`` the same values as checked, typed objects (:mod:`facies_ml.settings`): a
+    misspelt, mistyped or out-of-range key stops here with its key path, before any well is
+    read."""
 
     raw: dict[str, Any]
     base_dir: Path
+    settings: Settings = field(init=False)
     facies: FaciesScheme = field(init=False)
 
     def __post_init__(self) -> None:
+        self.settings = check_settings(self.raw)
         self.facies = load_facies_scheme(self.path("facies_scheme"))
 
     def path(self, key: str) -> Path:
@@ -181,7 +187,9 @@ def load_config(path: str | Path | None = None, overrides: dict[str, Any] | None
         raw = _merge(raw, user)
     if overrides:
         raw = _merge(raw, overrides)
-    unit = raw.get("project", {}).get("working_depth_unit")
-    if unit not in ("ft", "m"):
-        raise InputError(f"project.working_depth_unit must be 'ft' or 'm', not {unit!r}")
-    return Config(raw=raw, base_dir=base_dir)
+    try:
+        return Config(raw=raw, base_dir=base_dir)
+    except InputError as exc:
+        if path is not None and exc.file is None:
+            raise InputError(str(exc), file=str(path)) from None
+        raise

@@ -23,7 +23,7 @@ from facies_ml.features import (
     vsh_linear,
 )
 
-FORCE = Path("/work/shared/data/force2020")
+FORCE = Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020"  # beside the checkout
 SETTINGS = load_config().section("features")
 
 
@@ -186,7 +186,7 @@ def test_bad_input_raises_input_error() -> None:
 
 @pytest.mark.skipif(not (FORCE / "16_2-6.csv").is_file(), reason="FORCE 2020 data not present")
 def test_force2020_well_shale_has_higher_igr_than_sandstone() -> None:
-    # Open dataset: /work/shared/data/force2020 (see its SOURCE.md; FORCE 2020 Machine Learning
+    # Open dataset: ../shared/data/force2020 (see its SOURCE.md; FORCE 2020 Machine Learning
     # competition, Bormann et al. 2020). "Lithofacies data was provided by the FORCE Machine
     # Learning competition with well logs and seismic 2020". SOURCE.md: 30000 = sandstone,
     # 65000 = shale; shale has the higher GR (common practice, and SOURCE.md's medians).

@@ -1,6 +1,6 @@
 """Cheap leave-one-well-out run on the open FORCE 2020 wells (regression floor, not a score).
 
-Data: /work/shared/data/force2020, see its SOURCE.md (logs NLOD 2.0, labels CC BY 4.0).
+Data: ../shared/data/force2020, see its SOURCE.md (logs NLOD 2.0, labels CC BY 4.0).
 Citation: Bormann P., Aursand P., Dilib F., Dischington P., Manral S. 2020. FORCE Machine
 Learning Competition, https://github.com/bolgebrygg/Force-2020-Machine-Learning-competition.
 "Lithofacies data was provided by the FORCE Machine Learning competition with well logs and
@@ -17,7 +17,7 @@ import pytest
 
 from facies_ml.config import load_config
 
-DATA = Path("/work/shared/data/force2020")
+DATA = Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020"  # beside the checkout
 SCRIPT = Path(__file__).resolve().parent.parent / "benchmarks" / "force2020_eval.py"
 
 pytestmark = pytest.mark.skipif(not (DATA / "SOURCE.md").is_file(),
@@ -42,7 +42,7 @@ def test_loader_matches_source_md_counts() -> None:
     # Depth: regular 0.152 m step, increasing downward (SOURCE.md "Depth order").
     np.testing.assert_allclose(np.diff(curves.index.to_numpy()), 0.152, atol=1e-4)
     # Wireline curves only: no location, confidence, ROP or mud weight.
-    assert set(curves.columns) <= set(cfg.section("force2020")["columns"].values())
+    assert set(curves.columns) <= set(mod.FC["columns"].values())
     # 16/8-1 has no PEF (SOURCE.md) -> the role is absent, not zero-filled.
     _, c81, _ = mod.load_force_well(DATA / "16_8-1.csv", cfg)
     assert "pe_b_e" not in c81.columns

@@ -2,7 +2,7 @@
 
 External references: scikit-learn (clone/get_params contract, GroupShuffleSplit,
 brier_score_loss, f1_score, calibration_curve) and the FORCE 2020 penalty matrix (SOURCE.md of
-/work/shared/data/force2020).
+../shared/data/force2020).
 """
 
 from __future__ import annotations
@@ -28,7 +28,7 @@ from facies_ml.lithofacies import (
     summarize_contributions,
 )
 
-FORCE = Path("/work/shared/data/force2020")
+FORCE = Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020"  # beside the checkout
 FAST = {"n_estimators": 60, "learning_rate": 0.2, "num_leaves": 8, "early_stopping_rounds": 10}
 
 

@@ -6,7 +6,7 @@ External references used below:
   information items; the first ~C curve is the index; STEP is the constant spacing.
 - Published equations: volumetric density mixing / density porosity, the Wyllie et al. (1956)
   time average, Archie (1942), the API gamma relation GR = 16 K + 8 U + 4 Th (from memory).
-- FORCE 2020 open dataset, /work/shared/data/force2020/SOURCE.md (Bormann et al. 2020,
+- FORCE 2020 open dataset, ../shared/data/force2020/SOURCE.md (Bormann et al. 2020,
   doi 10.5281/zenodo.4351156): median GR sandstone < sandstone/shale < shale.
 - Trade facts marked "common practice".
 """
@@ -36,7 +36,7 @@ from facies_ml.synthetic.petrophysics import (
 
 ROOT = Path(__file__).resolve().parent.parent
 BUNDLED = ROOT / "synthetic_wells"
-FORCE = Path("/work/shared/data/force2020")
+FORCE = Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020"  # beside the checkout
 CFG = yaml.safe_load(DEFAULT_SYNTH_CONFIG.read_text())
 CHECKS = CFG["checks"]
 

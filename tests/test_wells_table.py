@@ -19,10 +19,8 @@ from facies_ml.config import load_config
 from facies_ml.errors import InputError
 from facies_ml.wells import read_table, read_wells
 
-# shared/ sits beside the repository (as in CI); /work/shared is the development location
-FORCE = next((p for p in (Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020",
-                          Path("/work/shared/data/force2020")) if p.is_dir()),
-             Path("/work/shared/data/force2020"))
+# shared/ sits beside the repository checkout (as in CI)
+FORCE = Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020"  # beside the checkout
 FT = 0.3048  # exact, international foot
 
 
