@@ -78,12 +78,9 @@ class FeatureEnvelope:
         f = self.flag(X)
         return float(f.mean()) if len(f) else 0.0
 
-    def summary(self, X: pd.DataFrame) -> dict[str, Any]:
-        """Share of samples outside the envelope, per feature (features with any outside)."""
-        return self.assess(X)[1]
-
     def assess(self, X: pd.DataFrame) -> tuple[np.ndarray, dict[str, Any]]:
-        """(:meth:`flag`, :meth:`summary`) from one pass over ``X``."""
+        """(:meth:`flag`, share of samples outside the envelope per feature — only features with
+        any sample outside) from one pass over ``X``."""
         cols, out = self._outside(X)
         share = out.mean(axis=0) if len(out) else np.zeros(len(cols))
         return (out.sum(axis=1) >= self.min_features,

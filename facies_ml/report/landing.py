@@ -74,12 +74,3 @@ def landing_summary(pred: WellPrediction, settings: dict[str, Any]) -> pd.DataFr
         rows.append(row)
     return pd.DataFrame(rows)
 
-
-def basin_landing_table(preds: list[WellPrediction], settings: dict[str, Any]) -> pd.DataFrame:
-    """All wells' sequence rows together, sorted by well and sequence (deepest first)."""
-    frames = [landing_summary(p, settings) for p in preds]
-    frames = [f for f in frames if len(f)]
-    if not frames:
-        return pd.DataFrame()
-    return pd.concat(frames, ignore_index=True).sort_values(["well", "sequence"],
-                                                            kind="stable").reset_index(drop=True)

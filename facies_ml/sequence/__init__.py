@@ -4,14 +4,6 @@ decoding and surfaces.
 Every sequence operation runs UP-SECTION (from the deepest sample upward).
 """
 
-from facies_ml.sequence.decode import (
-    ExpandedModel,
-    expand_durations,
-    forward_backward,
-    forward_backward_durations,
-    viterbi,
-    viterbi_durations,
-)
 from facies_ml.sequence.durations import (
     DurationModel,
     ExplicitDuration,
@@ -35,7 +27,6 @@ from facies_ml.sequence.surfaces import Surface, SurfaceChecks, pick_surfaces
 __all__ = [
     "DecodeResult",
     "DurationModel",
-    "ExpandedModel",
     "ExplicitDuration",
     "MinimumGeometricDuration",
     "SemiMarkovTables",
@@ -45,14 +36,9 @@ __all__ = [
     "TractRules",
     "TractSequenceModel",
     "WellSequence",
-    "expand_durations",
     "fit_durations",
-    "forward_backward",
-    "forward_backward_durations",
     "forward_backward_semimarkov",
     "load_rules",
     "pick_surfaces",
-    "viterbi",
-    "viterbi_durations",
     "viterbi_semimarkov",
 ]
