@@ -53,11 +53,13 @@ class FaciesClass:
 
 @dataclass(frozen=True)
 class FaciesScheme:
-    """The lithofacies classes a project predicts, in a fixed order (class index = position)."""
+    """The lithofacies classes a project predicts, in a fixed order (class index = position),
+    and the systems tracts, which come from the sequence rule table's ``states`` (the one file
+    that lists them; empty when the scheme is read on its own)."""
 
     name: str
     classes: tuple[FaciesClass, ...]
-    systems_tracts: tuple[str, ...] = ("LST", "TST", "EHST", "LHST")
+    systems_tracts: tuple[str, ...] = ()
 
     @property
     def labels(self) -> list[str]:
@@ -95,8 +97,19 @@ class FaciesScheme:
         return adj
 
 
-def load_facies_scheme(path: str | Path) -> FaciesScheme:
+FACIES_SCHEME_KEYS = ("name", "classes")
+
+
+def load_facies_scheme(path: str | Path, systems_tracts: tuple[str, ...] = ()) -> FaciesScheme:
+    """The facies scheme file (``name``, ``classes``); ``systems_tracts`` from the rule table."""
     data = read_yaml(path)
+    for key in data:
+        if key == "systems_tracts":
+            raise InputError("systems_tracts: the tract list now lives only in the sequence "
+                             "rule table (its 'states'); remove it here", file=str(path))
+        if key not in FACIES_SCHEME_KEYS:
+            raise InputError(f"{key}: unknown setting in a facies scheme (known: "
+                             f"{', '.join(FACIES_SCHEME_KEYS)})", file=str(path))
     classes = []
     seen: set[str] = set()
     for i, item in enumerate(data.get("classes") or []):
@@ -116,9 +129,8 @@ def load_facies_scheme(path: str | Path) -> FaciesScheme:
         classes.append(fc)
     if len(classes) < 2:
         raise InputError("a facies scheme needs at least two classes", file=str(path))
-    tracts = tuple(data.get("systems_tracts") or ("LST", "TST", "EHST", "LHST"))
     return FaciesScheme(name=str(data.get("name", Path(path).stem)), classes=tuple(classes),
-                        systems_tracts=tracts)
+                        systems_tracts=tuple(systems_tracts))
 
 
 @dataclass
@@ -135,7 +147,17 @@ class Config:
 
     def __post_init__(self) -> None:
         self.settings = check_settings(self.raw)
-        self.facies = load_facies_scheme(self.path("facies_scheme"))
+        self.facies = load_facies_scheme(self.path("facies_scheme"), self.tract_names())
+
+    def tract_names(self) -> tuple[str, ...]:
+        """Systems-tract names in rule-table order (``states`` of ``files.sequence_rules``)."""
+        path = self.path("sequence_rules")
+        states = read_yaml(path).get("states")
+        if not isinstance(states, list) or len(states) < 2 or not all(
+                isinstance(s, str) and s for s in states):
+            raise InputError("states: give the systems-tract names as a list of at least two",
+                             file=str(path))
+        return tuple(states)
 
     def path(self, key: str) -> Path:
         """Absolute path of a file named under ``files:``."""

@@ -8,8 +8,9 @@ import typing
 from dataclasses import fields, is_dataclass
 
 import pytest
+import yaml
 
-from facies_ml.config import DEFAULT_CONFIG, read_yaml
+from facies_ml.config import DEFAULT_CONFIG, load_config, read_yaml
 from facies_ml.errors import InputError
 from facies_ml.settings import Settings, check_settings
 
@@ -69,3 +70,24 @@ def test_nested_enum_and_cross_checks():
     raw["sequence"]["checks"]["mfs_gr_windw"] = 3
     with pytest.raises(InputError, match="did you mean mfs_gr_window"):
         check_settings(raw)
+
+
+def test_load_config_stops_at_a_misspelt_key_in_a_user_file(tmp_path):
+    user = tmp_path / "project.yaml"
+    user.write_text("lithofacies:\n  n_estimator: 50\n")
+    with pytest.raises(InputError, match=r"project.yaml: lithofacies.n_estimator: unknown "
+                                         r"setting; did you mean n_estimators\?"):
+        load_config(user)
+
+
+def test_tract_list_lives_only_in_the_rule_table(tmp_path):
+    cfg = load_config()
+    states = read_yaml(cfg.path("sequence_rules"))["states"]
+    assert list(cfg.facies.systems_tracts) == states == ["LST", "TST", "EHST", "LHST"]
+    # a facies scheme that still lists the tracts is refused, naming the file and the key
+    scheme = read_yaml(cfg.path("facies_scheme"))
+    scheme["systems_tracts"] = ["LST", "TST"]
+    bad = tmp_path / "facies.yaml"
+    bad.write_text(yaml.safe_dump(scheme))
+    with pytest.raises(InputError, match=r"facies.yaml: systems_tracts: .*sequence rule table"):
+        load_config(overrides={"files": {"facies_scheme": str(bad)}})
