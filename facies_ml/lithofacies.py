@@ -7,6 +7,7 @@ to the classifier (depth direction only matters inside the features).
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 from collections.abc import Callable, Sequence
 from typing import Any
@@ -18,6 +19,7 @@ from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.model_selection import GroupShuffleSplit
 
 from facies_ml.errors import InputError
+from facies_ml.settings import LithofaciesSettings
 
 
 def _as_frame(X: Any, names: Sequence[str] | None = None) -> pd.DataFrame:
@@ -53,14 +55,20 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
     rounds are used: a random sample split would leak through vertically correlated samples.
     Classes absent from training get a probability column of exactly 0.
     ``class_weight="balanced"`` weights each sample by n / (K_present * n_class); ``None`` = 1.
+
+    The project's values live in ``configs/default.yaml`` (section ``lithofacies``): build the
+    project's classifier with :meth:`from_settings`. The ``__init__`` defaults are LightGBM's own
+    (100 rounds, learning rate 0.1, 31 leaves, 20 samples per leaf, no bagging, no L2, 255 bins)
+    with no class weighting and no early stopping, so a bare ``LithofaciesClassifier()`` is a
+    plain LightGBM multiclass model.
     """
 
-    def __init__(self, n_estimators: int = 600, learning_rate: float = 0.05, num_leaves: int = 31,
-                 min_child_samples: int = 20, subsample: float = 0.8,
-                 colsample_bytree: float = 0.8, reg_lambda: float = 1.0,
-                 class_weight: str | None = "balanced", early_stopping_rounds: int = 40,
-                 validation_fraction: float = 0.2, n_jobs: int = 2, random_state: int = 0,
-                 max_bin: int = 63) -> None:
+    def __init__(self, n_estimators: int = 100, learning_rate: float = 0.1, num_leaves: int = 31,
+                 min_child_samples: int = 20, subsample: float = 1.0,
+                 colsample_bytree: float = 1.0, reg_lambda: float = 0.0,
+                 class_weight: str | None = None, early_stopping_rounds: int = 0,
+                 validation_fraction: float = 0.2, n_jobs: int = 1, random_state: int = 0,
+                 max_bin: int = 255) -> None:
         self.n_estimators = n_estimators
         self.learning_rate = learning_rate
         self.num_leaves = num_leaves
@@ -74,6 +82,13 @@ class LithofaciesClassifier(BaseEstimator, ClassifierMixin):
         self.n_jobs = n_jobs
         self.random_state = random_state
         self.max_bin = max_bin
+
+    @classmethod
+    def from_settings(cls, settings: LithofaciesSettings, random_state: int,
+                      **changes: Any) -> LithofaciesClassifier:
+        """The classifier the project settings describe (``changes`` override single
+        parameters, e.g. ``class_weight=None`` for the tract model)."""
+        return cls(**{**dataclasses.asdict(settings), "random_state": random_state, **changes})
 
     # ------------------------------------------------------------------ internals
     def _params(self, n_present: int) -> dict[str, Any]:

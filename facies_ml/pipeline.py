@@ -15,6 +15,7 @@ Predictions are probabilistic and must be reviewed by a qualified geoscientist.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 from dataclasses import dataclass, field, replace
 from functools import partial
@@ -52,9 +53,8 @@ class WellPrediction:
 
 
 def _lgbm_params(config: Config) -> dict[str, Any]:
-    params = config.section("lithofacies")
-    params.setdefault("random_state", config.seed)
-    return params
+    """LithofaciesClassifier parameters from the checked settings (seed = project.seed)."""
+    return {**dataclasses.asdict(config.settings.lithofacies), "random_state": config.seed}
 
 
 class FaciesPipeline:
