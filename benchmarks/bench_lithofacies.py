@@ -33,12 +33,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--n-estimators", type=int, default=None)
     args = ap.parse_args(argv)
     cfg = load_config()
-    params = dict(cfg.section("lithofacies"), random_state=cfg.seed)
-    if args.n_estimators:
-        params["n_estimators"] = args.n_estimators
+    changes = {"n_estimators": args.n_estimators} if args.n_estimators else {}
     X, y, g = synthetic(args.n)
     t0 = time.perf_counter()
-    model = LithofaciesClassifier(**params).fit(X, y, groups=g)
+    model = LithofaciesClassifier.from_settings(cfg.settings.lithofacies, cfg.seed,
+                                                **changes).fit(X, y, groups=g)
     fit_s = time.perf_counter() - t0
     t0 = time.perf_counter()
     p = model.predict_proba(X)
@@ -48,7 +47,7 @@ def main(argv: list[str] | None = None) -> int:
     model.contributions(sub)
     contrib_s = time.perf_counter() - t0
     acc = float((p.argmax(1) == y).mean())
-    print(f"samples {len(X)}, features {X.shape[1]}, classes 6, threads {params['n_jobs']}")
+    print(f"samples {len(X)}, features {X.shape[1]}, classes 6, threads {model.n_jobs}")
     print(f"fit: {fit_s:.1f} s, {len(X) / fit_s:,.0f} samples/s "
           f"(best iteration {model.best_iteration_}, early stop + refit)")
     print(f"predict_proba: {pred_s:.2f} s, {len(X) / pred_s:,.0f} samples/s")
