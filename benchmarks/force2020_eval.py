@@ -206,7 +206,7 @@ def evaluate(config: Config, wells: list[tuple[str, pd.DataFrame, np.ndarray]],
     k = len(config.facies.classes)
     if cost.shape != (k, k):
         raise InputError(f"penalty matrix is {cost.shape}, the facies scheme has {k} classes")
-    fset = config.section("features")
+    fset = config.settings.features
     if train_every is None:
         train_every = int(fc.get("train_every", 1))
     if gr_normalize is None:

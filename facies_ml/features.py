@@ -12,37 +12,35 @@ Feature columns (only built when the roles they need are present; never zero-fil
 - ``cali_minus_bs_in`` (caliper minus bit size, in), ``nphi_minus_dphi`` (neutron porosity minus
   sandstone-matrix density porosity, v/v);
 - ``<role>_mean_w<W>`` / ``<role>_std_w<W>``: centred moving mean / standard deviation over a
-  window of ``W`` working-depth units (``settings["windows"]``);
+  window of ``W`` working-depth units (``settings.windows``);
 - ``<role>_upslope_w<W>``: least-squares slope per working-depth unit of the value against height
-  over a centred window ``W`` (``settings["trend_windows"]``), positive = increasing upward;
+  over a centred window ``W`` (``settings.trend_windows``), positive = increasing upward;
 - ``gr_peak_height_above``: height of the sample above the highest GR within a centred window of
-  ``settings["gr_peak_window"]`` units (negative = the sample lies below that peak);
+  ``settings.gr_peak_window`` units (negative = the sample lies below that peak);
   ``gr_minus_window_max``: GR minus that window maximum (API, <= 0);
 - ``igr`` (linear gamma-ray index, 0..1), ``vsh_larionov_older``, ``vsh_larionov_tertiary``;
 - ``delta_log_r_sonic`` / ``delta_log_r_density`` (Passey et al. 1990) and the matching
-  ``toc_passey_sonic`` / ``toc_passey_density`` (wt %) at maturity ``settings["passey_lom"]``;
+  ``toc_passey_sonic`` / ``toc_passey_density`` (wt %) at maturity ``settings.passey_lom``;
 - ``th_u_ratio`` (Th/U, ppm/ppm) when spectral gamma ray exists;
 - ``relative_position`` (0 = base of the logged interval, 1 = top) if
-  ``settings["include_relative_position"]``.
+  ``settings.include_relative_position``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from facies_ml.errors import InputError
+from facies_ml.settings import FeatureSettings
 
 # Matrix and fluid densities for the density-porosity term of ``nphi_minus_dphi`` (g/cm3):
 # sandstone matrix and fresh mud filtrate (common practice).
 _RHO_MATRIX = 2.65
 _RHO_FLUID = 1.0
 
-_STAT_ROLES_DEFAULT = ("gr_api", "log10_rt", "rhob_g_cc", "nphi_v_v", "pe_b_e", "dtc_us_ft")
-_TREND_ROLES_DEFAULT = ("gr_api", "log10_rt")
 
 
 # ----------------------------------------------------------------------------- shale volume
@@ -240,12 +238,11 @@ def _check_rt(rt: np.ndarray, depth: np.ndarray, curves: pd.DataFrame) -> None:
                          well=_well_name(curves), curve="rt_ohmm", depth=float(depth[i]))
 
 
-def _gr_limits(gr: np.ndarray, settings: dict[str, Any], gr_reference: dict | None,
+def _gr_limits(gr: np.ndarray, settings: FeatureSettings, gr_reference: dict | None,
                curves: pd.DataFrame) -> tuple[float, float]:
     if gr_reference is not None and "gr_clean" in gr_reference and "gr_shale" in gr_reference:
         return float(gr_reference["gr_clean"]), float(gr_reference["gr_shale"])
-    lo = float(settings.get("gr_clean_percentile", 5))
-    hi = float(settings.get("gr_shale_percentile", 95))
+    lo, hi = settings.gr_clean_percentile, settings.gr_shale_percentile
     clean, shale = np.nanpercentile(gr, [lo, hi])
     if not shale > clean:
         raise InputError(f"gamma ray is flat (P{lo:g} = P{hi:g} = {clean:g} API); cannot scale "
@@ -253,15 +250,14 @@ def _gr_limits(gr: np.ndarray, settings: dict[str, Any], gr_reference: dict | No
     return float(clean), float(shale)
 
 
-def feature_reference(curves_list: Sequence[pd.DataFrame], settings: dict[str, Any]) -> dict:
+def feature_reference(curves_list: Sequence[pd.DataFrame], settings: FeatureSettings) -> dict:
     """Reference values fitted on TRAINING wells only (pooled samples).
 
     Returns ``{"gr_clean": P_lo, "gr_shale": P_hi, "n_wells": ..., "n_samples": ...}`` with the
-    gamma-ray percentiles ``settings["gr_clean_percentile"]`` / ``["gr_shale_percentile"]`` (API).
+    gamma-ray percentiles ``settings.gr_clean_percentile`` / ``.gr_shale_percentile`` (API).
     Without any gamma ray, returns ``{}`` (each well then uses its own percentiles).
     """
-    lo = float(settings.get("gr_clean_percentile", 5))
-    hi = float(settings.get("gr_shale_percentile", 95))
+    lo, hi = settings.gr_clean_percentile, settings.gr_shale_percentile
     pooled = []
     for curves in curves_list:
         gr = _curve(curves, "gr_api")
@@ -285,17 +281,17 @@ def _window_label(w: float) -> str:
 def build_features(
     curves: pd.DataFrame,
     step: float,
-    settings: dict[str, Any],
+    settings: FeatureSettings,
     gr_reference: dict | None = None,
 ) -> pd.DataFrame:
     """Feature table with the same depth index as ``curves`` (see the module docstring).
 
     ``curves``: canonical roles, depth index in the working unit increasing downward on the
-    regular ``step``. ``settings``: the ``features:`` section of the project settings.
+    regular ``step``. ``settings``: the checked ``features`` settings (``config.settings.features``).
     ``gr_reference``: from :func:`feature_reference` on the training wells; when ``None`` the
     well's own GR percentiles scale the shale volume. Windows are in working-depth units.
     Delta log R baseline: the median resistivity / sonic / density over the well's own shale
-    samples (IGR >= ``settings["dlogr_baseline_igr"]``) — an automatic stand-in for a baseline
+    samples (IGR >= ``settings.dlogr_baseline_igr``) — an automatic stand-in for a baseline
     picked by hand in non-source mudstone; Delta log R is therefore relative within each well.
     """
     depth = _check_index(curves, step)
@@ -321,12 +317,12 @@ def build_features(
         dphi = (_RHO_MATRIX - base["rhob_g_cc"]) / (_RHO_MATRIX - _RHO_FLUID)
         out["nphi_minus_dphi"] = base["nphi_v_v"] - dphi
 
-    stat_roles = settings.get("stat_roles", _STAT_ROLES_DEFAULT)
+    stat_roles = settings.stat_roles
     for role in stat_roles:
         if role not in base:
             continue
         s = pd.Series(base[role])
-        for w in settings.get("windows", [2.0, 5.0, 10.0, 20.0]):
+        for w in settings.windows:
             ns = _odd_window(w, step)
             if ns < 3:
                 continue
@@ -334,10 +330,10 @@ def build_features(
             out[f"{role}_mean_{_window_label(w)}"] = roll.mean().to_numpy()
             out[f"{role}_std_{_window_label(w)}"] = roll.std().to_numpy()
 
-    for role in settings.get("trend_roles", _TREND_ROLES_DEFAULT):
+    for role in settings.trend_roles:
         if role not in base:
             continue
-        for w in settings.get("trend_windows", [5.0, 10.0, 20.0, 40.0]):
+        for w in settings.trend_windows:
             ns = _odd_window(w, step)
             if ns < 3:
                 continue
@@ -345,7 +341,7 @@ def build_features(
 
     if "gr_api" in base:
         gr = base["gr_api"]
-        ns = _odd_window(float(settings.get("gr_peak_window", 20.0)), step)
+        ns = _odd_window(settings.gr_peak_window, step)
         height, diff = _height_above_window_max(gr, step, ns)
         out["gr_peak_height_above"] = height
         out["gr_minus_window_max"] = diff
@@ -356,8 +352,8 @@ def build_features(
         out["vsh_larionov_tertiary"] = vsh_larionov_tertiary(igr)
 
         if rt is not None:
-            shale_mask = np.isfinite(igr) & (igr >= float(settings.get("dlogr_baseline_igr", 0.7)))
-            lom = float(settings.get("passey_lom", 10.5))
+            shale_mask = np.isfinite(igr) & (igr >= settings.dlogr_baseline_igr)
+            lom = settings.passey_lom
             for kind, role in (("sonic", "dtc_us_ft"), ("density", "rhob_g_cc")):
                 if role not in base:
                     continue
@@ -379,7 +375,7 @@ def build_features(
         with np.errstate(invalid="ignore", divide="ignore"):
             out["th_u_ratio"] = np.where(u > 0, base["th_ppm"] / np.where(u > 0, u, 1.0), np.nan)
 
-    if settings.get("include_relative_position", True):
+    if settings.include_relative_position:
         span = depth[-1] - depth[0]
         out["relative_position"] = (depth[-1] - depth) / span if span > 0 else np.full(n, 0.5)
 

@@ -85,7 +85,7 @@ class FaciesPipeline:
             self.gr_normalizer_ = GRNormalizer(norm.get("low_percentile", 5),
                                                norm.get("high_percentile", 95)).fit(labelled)
             labelled = [self.gr_normalizer_.transform(w) for w in labelled]
-        settings = cfg.section("features")
+        settings = cfg.settings.features
         self.feature_reference_ = feature_reference([w.curves for w in labelled], settings)
         frames, y_facies, y_tract, groups = [], [], [], []
         for w in labelled:
@@ -97,7 +97,7 @@ class FaciesPipeline:
             groups.append(np.full(len(X), w.name, dtype=object))
         # Drop features that only a minority of the training wells carry (e.g. spectral gamma
         # in two of five wells): a model leaning on them would serve few offset wells.
-        coverage = float(settings.get("min_well_coverage", 0.0))
+        coverage = settings.min_well_coverage
         counts: dict[str, int] = {}
         for X in frames:
             for col in X.columns[X.notna().any().to_numpy()]:
@@ -312,7 +312,7 @@ class FaciesPipeline:
                              f"{self.config.working_unit}", well=well.name)
         if self.gr_normalizer_ is not None:
             well = self.gr_normalizer_.transform(well)
-        X = build_features(well.curves, well.step, self.config.section("features"),
+        X = build_features(well.curves, well.step, self.config.settings.features,
                            self.feature_reference_)
         present = set(X.columns[X.notna().any().to_numpy()])
         have = [f for f in self.feature_names_ if f in present]

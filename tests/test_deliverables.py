@@ -70,7 +70,7 @@ def test_reported_organic_proxy_is_passey_floored_at_zero(fitted):
     well = project.wells[0]
     pred = pipe.predict_well(well)
     norm = pipe.gr_normalizer_.transform(well) if pipe.gr_normalizer_ is not None else well
-    X = build_features(norm.curves, norm.step, pipe.config.section("features"),
+    X = build_features(norm.curves, norm.step, pipe.config.settings.features,
                        pipe.feature_reference_)
     col = "toc_passey_density" if "toc_passey_density" in X else "toc_passey_sonic"
     raw = X[col].to_numpy(float)

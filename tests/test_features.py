@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -24,7 +25,7 @@ from facies_ml.features import (
 )
 
 FORCE = Path(__file__).resolve().parents[2] / "shared" / "data" / "force2020"  # beside the checkout
-SETTINGS = load_config().section("features")
+SETTINGS = load_config().settings.features
 
 
 def _curves(n: int = 400, step: float = 0.5, seed: int = 1) -> pd.DataFrame:
@@ -127,7 +128,7 @@ def test_upsection_slope_matches_numpy_polyfit() -> None:
 
 def test_build_features_columns_direction_and_missing_roles() -> None:
     c = _curves()
-    X = build_features(c, 0.5, dict(SETTINGS, include_relative_position=True))
+    X = build_features(c, 0.5, replace(SETTINGS, include_relative_position=True))
     assert X.index.equals(c.index)
     for col in ("gr_api", "log10_rt", "igr", "vsh_larionov_older", "gr_api_mean_w5",
                 "gr_api_upslope_w10", "delta_log_r_sonic", "toc_passey_density",
@@ -149,7 +150,7 @@ def test_gr_peak_height_sign() -> None:
     n = 201
     gr = 100.0 - np.abs(np.arange(n) - 100.0) * 0.5
     c = pd.DataFrame({"gr_api": gr}, index=2000.0 + step * np.arange(n))
-    X = build_features(c, step, dict(SETTINGS, gr_peak_window=40.0))
+    X = build_features(c, step, replace(SETTINGS, gr_peak_window=40.0))
     assert X["gr_peak_height_above"].iloc[90] == pytest.approx(5.0)     # 10 samples above
     assert X["gr_peak_height_above"].iloc[110] == pytest.approx(-5.0)
     assert X["gr_minus_window_max"].iloc[100] == 0.0
