@@ -174,12 +174,11 @@ class FaciesPipeline:
         semi-Markov sequence model on the core tracts, and its evidence weight calibrated on
         held-out tract posteriors of the training wells."""
         cfg = self.config
-        seq = cfg.section("sequence")
+        seq = cfg.settings.sequence
         labels = cfg.facies.labels
         self.evidence_settings_ = {
-            "windows": [float(w) for w in seq["facies_windows"]],
-            "curves": [str(c) for c in seq["stacking_curves"]],
-            "curve_windows": [float(w) for w in seq["stacking_windows"]]}
+            "windows": list(seq.facies_windows), "curves": list(seq.stacking_curves),
+            "curve_windows": list(seq.stacking_windows)}
         step = cfg.step
         facies_oof = self._facies_oof(frames, y_facies, keep, params)
         evid = [tract_evidence_matrix(X.reindex(columns=keep), p, labels, step,
@@ -191,9 +190,7 @@ class FaciesPipeline:
         g = np.concatenate([np.full(len(E), k) for k, E in enumerate(evid)])
         # neighbouring samples of one tract carry nearly the same evidence: every
         # ``evidence_row_stride``-th labelled sample trains the tract models (faster, same fit)
-        stride = int(seq["evidence_row_stride"])
-        if stride < 1:
-            raise InputError(f"sequence.evidence_row_stride must be >= 1, not {stride}")
+        stride = seq.evidence_row_stride
         has_t = (yt >= 0) & (np.arange(yt.size) % stride == 0)
         n_tracts = len(self.tract_names_)
         tract_params = dict(params, class_weight=None)
@@ -207,7 +204,7 @@ class FaciesPipeline:
         # held-out tract posteriors of each training well -> evidence weight
         wells_t = [k for k, y in enumerate(y_states) if (y >= 0).any()]
         held_post, held_lab, held_depth = [], [], []
-        if len(wells_t) >= 2 and len(seq["evidence_weight_grid"]) > 1:
+        if len(wells_t) >= 2 and len(seq.evidence_weight_grid) > 1:
             for k in wells_t:
                 tr = (g != k) & has_t
                 if np.unique(yt[tr]).size < 2:        # the other wells show one tract only
@@ -220,10 +217,9 @@ class FaciesPipeline:
             if held_post:
                 self.evidence_calibration_ = self.sequence_model_.calibrate_weight(
                     held_post, held_lab, held_depth,
-                    [float(w) for w in seq["evidence_weight_grid"]],
-                    target_coverage=float(seq["target_coverage"]),
-                    match_tolerance=float(cfg.section("evaluation")["surface_match_tolerance"]))
-        self.surface_checks_ = SurfaceChecks(**seq["checks"])    # checked in __post_init__
+                    list(seq.evidence_weight_grid), target_coverage=seq.target_coverage,
+                    match_tolerance=cfg.settings.evaluation.surface_match_tolerance)
+        self.surface_checks_ = SurfaceChecks(**dataclasses.asdict(seq.checks))
 
     def _fit_correlation(self, wells: list[Well], labels: list[pd.DataFrame]) -> None:
         """The basin's ordered sequence list from the cored wells' interpreted tracts and the
@@ -247,8 +243,9 @@ class FaciesPipeline:
         if not units:
             return
         named = all(all(n for n in v) for v in names.values())
-        self.correlator_ = SequenceCorrelator(**self.config.section("correlation")).fit(
-            units, names if named else None)                 # settings checked in fit
+        self.correlator_ = SequenceCorrelator(
+            **dataclasses.asdict(self.config.settings.correlation)).fit(
+            units, names if named else None)
 
     def name_sequences(self, well: Well, path: np.ndarray, surfaces: list[Surface]
                        ) -> tuple[list[Surface], list[str], list[str]]:

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import itertools
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -348,8 +349,7 @@ LST, TST, EHST, LHST = range(4)
 @pytest.fixture(scope="module")
 def thick_model() -> TractSequenceModel:
     """Explicit durations fitted on runs of ~100 samples (0.5 ft step: ~50 ft tracts)."""
-    seq_cfg = load_config().section("sequence")
-    dur = seq_cfg["duration"]
+    seq_cfg = load_config().settings.sequence
     rng = np.random.default_rng(9)
     wells = []
     for _ in range(4):
@@ -359,7 +359,7 @@ def thick_model() -> TractSequenceModel:
             k = {LST: TST, TST: EHST, EHST: LHST}.get(k, LST if rng.random() < 0.6 else TST)
         wells.append(np.concatenate(runs)[::-1])          # fit takes TOP-DOWN labels
     model = TractSequenceModel.from_settings(
-        RULES, {**seq_cfg, "duration": {**dur, "model": "explicit"}})
+        RULES, replace(seq_cfg, duration=replace(seq_cfg.duration, model="explicit")))
     return model.fit(wells, step=0.5, depth_unit="ft")
 
 

@@ -28,7 +28,7 @@ MEDIANS = np.array([30.0, 50.0, 80.0, 120.0])  # true median run thickness (samp
 
 def settings_kwargs(**over: Any) -> dict[str, Any]:
     """Constructor arguments from configs/default.yaml (sequence:), optionally overridden."""
-    model = TractSequenceModel.from_settings(RULES, load_config().section("sequence"))
+    model = TractSequenceModel.from_settings(RULES, load_config().settings.sequence)
     kw: dict[str, Any] = {k: v for k, v in vars(model).items() if k != "rules"}
     kw.update(over)
     return kw

@@ -29,6 +29,7 @@ from facies_ml.sequence.semimarkov import (
     viterbi_semimarkov,
 )
 from facies_ml.sequence.surfaces import Surface, SurfaceChecks, match_nearest, pick_surfaces
+from facies_ml.settings import SequenceSettings
 
 
 @dataclass(frozen=True, eq=False)
@@ -143,16 +144,16 @@ class TractSequenceModel:
         self.decode_resolution = decode_resolution
 
     @classmethod
-    def from_settings(cls, rules: TractRules, settings: dict) -> TractSequenceModel:
-        """A model with the parameters of the ``sequence:`` section of the project settings."""
-        dur = settings["duration"]
-        return cls(rules, duration_model=str(dur["model"]),
-                   prior_count=float(settings["prior_count"]),
-                   duration_prior_runs=float(dur["prior_runs"]),
-                   duration_prior_log_sigma=float(dur["prior_log_sigma"]),
-                   duration_log_sigma_floor=float(dur["log_sigma_floor"]),
-                   evidence_weight=float(settings["evidence_weight"]),
-                   decode_resolution=float(settings["decode_resolution"]))
+    def from_settings(cls, rules: TractRules, settings: SequenceSettings) -> TractSequenceModel:
+        """A model with the parameters of the checked ``sequence`` settings
+        (``config.settings.sequence``)."""
+        dur = settings.duration
+        return cls(rules, duration_model=dur.model, prior_count=settings.prior_count,
+                   duration_prior_runs=dur.prior_runs,
+                   duration_prior_log_sigma=dur.prior_log_sigma,
+                   duration_log_sigma_floor=dur.log_sigma_floor,
+                   evidence_weight=settings.evidence_weight,
+                   decode_resolution=settings.decode_resolution)
 
     # ------------------------------------------------------------------ training
     def fit(self, labels_topdown: list[np.ndarray], step: float,
