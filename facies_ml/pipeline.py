@@ -79,11 +79,11 @@ class FaciesPipeline:
         labelled = [w for w in wells if w.name in labels]
         if not labelled:
             raise InputError("no training well has core labels; check the core file's well names")
-        norm = cfg.section("intake").get("gr_normalization", {})
+        norm = cfg.settings.intake.gr_normalization
         self.gr_normalizer_ = None
-        if norm.get("enabled", True):
-            self.gr_normalizer_ = GRNormalizer(norm.get("low_percentile", 5),
-                                               norm.get("high_percentile", 95)).fit(labelled)
+        if norm.enabled:
+            self.gr_normalizer_ = GRNormalizer(norm.low_percentile,
+                                               norm.high_percentile).fit(labelled)
             labelled = [self.gr_normalizer_.transform(w) for w in labelled]
         settings = cfg.settings.features
         self.feature_reference_ = feature_reference([w.curves for w in labelled], settings)
@@ -129,10 +129,9 @@ class FaciesPipeline:
         if (yt >= 0).sum() > 0:
             self._fit_sequence_stage(frames, keep, y_facies, y_tract, params)
             self._fit_correlation(labelled, [labels[w.name] for w in labelled])
-        env = cfg.section("applicability")
-        self.envelope_ = FeatureEnvelope(float(env.get("lower_quantile", 0.005)),
-                                         float(env.get("upper_quantile", 0.995)),
-                                         int(env.get("min_features", 1))).fit(X_all)
+        env = cfg.settings.applicability
+        self.envelope_ = FeatureEnvelope(env.lower_quantile, env.upper_quantile,
+                                         env.min_features).fit(X_all)
         self.training_wells_ = [w.name for w in labelled]
         # Deterministic identity of this fit (training features + labels + settings); batch
         # workers use it to keep one copy per process, with its lazily trained subset models.
