@@ -258,12 +258,13 @@ def compare(champion: Mapping[str, Mapping[str, float | None]],
     flags, notes = core_label_check(agreement, [r["well"] for r in rows if r["well"] in new],
                                     check)
     blocking = [d for d in diffs if d.blocks]
-    if flags:
-        wells = sorted({f["well"] for f in flags})
-        reason = ("kept champion: the core labels of " + ", ".join(wells) + " disagree with "
-                  "every model far more than the other wells do (check the core file)")
-    elif blocking:
-        reason = "kept champion: " + "; ".join(f"{d.metric} {d.verdict}" for d in blocking)
+    if flags or blocking:
+        why = [f"{d.metric} {d.verdict}" for d in blocking]
+        if flags:
+            wells = sorted({f["well"] for f in flags})
+            why.insert(0, "the core labels of " + ", ".join(wells) + " disagree with every "
+                       "model far more than the other wells do (check the core file)")
+        reason = "; ".join(why)
     else:
         p = next(d for d in diffs if d.metric == rule.primary_metric)
         reason = (f"{p.metric} mean gain {p.mean_difference:+.3f} over {p.n_wells} wells "

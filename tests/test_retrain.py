@@ -137,13 +137,15 @@ def test_a_flagged_new_well_keeps_the_champion_even_when_metrics_look_fine():
 
 
 @pytest.fixture(scope="module")
-def champion_dir(tiny_basin, fast_config, tmp_path_factory):
-    """A champion trained on all cored wells of the tiny basin but the last; its config lets
-    the core check compare against 2 other wells (the tiny basin has 3 cored wells)."""
+def champion_dir(tiny_basin, tmp_path_factory):
+    """A champion trained on all cored wells of the tiny basin but the last, with lean settings
+    (few boosting rounds, one evidence weight); its config lets the core check compare against
+    2 other wells (the tiny basin has 3 cored wells)."""
     root = tmp_path_factory.mktemp("retrain")
     cfg = root / "cfg.yaml"
-    cfg.write_text(fast_config.read_text()
-                   + "evaluation:\n  core_check:\n    min_other_wells: 2\n")
+    cfg.write_text("lithofacies:\n  n_estimators: 30\n  early_stopping_rounds: 10\n"
+                   "sequence:\n  evidence_weight_grid: [0.05]\n"
+                   "evaluation:\n  core_check:\n    min_other_wells: 2\n")
     core = pd.read_csv(tiny_basin / "core_intervals.csv")
     new_well = sorted(core["well"].unique())[-1]
     old = root / "core_old.csv"
