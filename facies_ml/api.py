@@ -330,7 +330,7 @@ def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path
     promote = bool(force or comparison.promote)
     reason = comparison.reason
     if force and not comparison.promote:
-        reason = f"forced promotion (--force); the rule alone would have {reason}"
+        reason = f"forced promotion (--force); the rule would have kept the champion: {reason}"
     if progress:
         progress(f"training the challenger on {len(project.cored)} cored wells")
     pipe = FaciesPipeline(cfg).fit(project.cored, project.labels)
