@@ -271,65 +271,79 @@ def write_predictions(pipe: FaciesPipeline, preds: list[WellPrediction],
 def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path,
             config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
             force: bool = False, progress: Progress = None) -> dict[str, Any]:
-    """Champion/challenger: fit a challenger on all cored wells and promote it only if it is
-    not worse than the champion by ``evaluation.promote_margin`` (macro-F1), unless ``force``.
+    """Champion/challenger: fit a challenger on all cored wells, save it as a new version and
+    promote it only when :mod:`facies_ml.champion`'s rule allows (or ``force``).
 
-    Comparison: (1) held-out (leave-one-well-out) scores on the champion's training wells, the
-    challenger's folds against the champion's recorded folds; (2) the new cored wells, which the
-    champion never saw: champion applied directly vs the challenger's held-out fold.
+    Each cored well is scored by both models without having trained them: a well of the
+    champion's training set by the champion's recorded held-out fold (recomputed with the
+    champion's settings when the manifest lacks it) and the challenger's fold; a new cored well
+    by the champion applied directly and the challenger's fold. The per-well lithofacies
+    macro-F1, systems-tract accuracy and share of surfaces within the close tolerance are
+    compared pair by pair over wells (``evaluation.promotion``), and new wells whose core
+    labels disagree with every model are flagged (``evaluation.core_check``). The promotion and
+    core-check settings come from ``config`` (default settings when None), the challenger's
+    training settings from ``config`` or else the champion's own. Returns the decision, the
+    per-well rows, per-metric differences with intervals, flags and version names.
     """
+    from facies_ml.champion import (
+        PromotionRule,
+        compare,
+        has_recorded_scores,
+        well_scores,
+    )
+    from facies_ml.evaluation import score_well
+    from facies_ml.settings import check_settings
+
     champion, manifest = load_version(model_dir)
-    cfg = _config(config) if config is not None else champion.config
+    rule_cfg = _config(config)
+    evaluation = check_settings(rule_cfg.raw).evaluation
+    rule = PromotionRule.from_settings(evaluation.promotion, rule_cfg.seed)
+    cfg = rule_cfg if config is not None else champion.config
     project = load_project(wells_path, core_path, cfg, core_gamma_path)
     old_wells = set(manifest.get("training_wells", {}))
-    new_wells = [w for w in project.cored if w.name not in old_wells]
-    metrics, held_preds = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
-    from facies_ml.evaluation import score_well
+    new_wells = [w.name for w in project.cored if w.name not in old_wells]
+    metrics, _ = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
 
-    champ_folds = (manifest.get("metrics") or {}).get("wells", {})
+    champ_folds = dict((manifest.get("metrics") or {}).get("wells", {}))
     old_cored = [w for w in project.cored if w.name in old_wells]
-    if len(old_cored) >= 2 and any(w.name not in champ_folds for w in old_cored):
-        # the champion's own held-out folds were not recorded: recompute them with the
+    if len(old_cored) >= 2 and not all(has_recorded_scores(champ_folds.get(w.name))
+                                       for w in old_cored):
+        # the champion's held-out folds were not (fully) recorded: recompute them with the
         # champion's settings on the champion's training wells
+        if progress:
+            progress("recomputing the champion's held-out folds")
         champ_metrics, _ = leave_one_well_out(old_cored, project.labels, champion.config,
                                               progress=progress)
         champ_folds = champ_metrics["wells"]
-    rows = []
+    champ_scores = {}
     for w in project.cored:
-        chal = metrics["wells"][w.name]
         if w.name in old_wells:
-            champ_f1 = (champ_folds.get(w.name) or {}).get("lithofacies_f1_macro")
-            basis = "same held-out fold (well left out of both)"
+            if has_recorded_scores(champ_folds.get(w.name)):
+                champ_scores[w.name] = well_scores(champ_folds[w.name])
         else:
-            champ_f1 = score_well(champion.predict_well(w), project.labels[w.name],
-                                  champion)["lithofacies_f1_macro"]
-            basis = "new well, champion never saw it"
-        rows.append({"well": w.name, "champion_f1": champ_f1,
-                     "challenger_f1": chal["lithofacies_f1_macro"], "basis": basis})
-    pairs = [(r["champion_f1"], r["challenger_f1"]) for r in rows
-             if r["champion_f1"] is not None and r["challenger_f1"] is not None]
-    margin = float(cfg.section("evaluation").get("promote_margin", 0.01))
-    champ_mean = sum(p[0] for p in pairs) / len(pairs) if pairs else None
-    chal_mean = sum(p[1] for p in pairs) / len(pairs) if pairs else None
-    better = champ_mean is None or (chal_mean is not None and chal_mean >= champ_mean - margin)
-    promote = bool(force or better)
-    if force and not better:
-        reason = "forced promotion (--force) although the challenger scored lower"
-    elif better:
-        reason = (f"challenger mean macro-F1 {chal_mean:.3f} vs champion {champ_mean:.3f}"
-                  f" (margin {margin})" if champ_mean is not None else "no champion scores")
-    else:
-        reason = (f"kept champion: challenger mean macro-F1 {chal_mean:.3f} is worse than "
-                  f"{champ_mean:.3f} by more than the margin {margin}")
+            if progress:
+                progress(f"champion on new well {w.name}")
+            champ_scores[w.name] = well_scores(
+                score_well(champion.predict_well(w), project.labels[w.name], champion))
+    chal_scores = {w.name: well_scores(metrics["wells"][w.name]) for w in project.cored}
+    comparison = compare(champ_scores, chal_scores, new_wells, rule, evaluation.core_check)
+    promote = bool(force or comparison.promote)
+    reason = comparison.reason
+    if force and not comparison.promote:
+        reason = f"forced promotion (--force); the rule would have kept the champion: {reason}"
+    if progress:
+        progress(f"training the challenger on {len(project.cored)} cored wells")
     pipe = FaciesPipeline(cfg).fit(project.cored, project.labels)
+    comparison_dict = comparison.to_dict() | {"promoted": promote, "reason": reason}
     version = save_version(
         pipe, model_dir, training_files={w.name: w.source for w in project.cored},
-        config_raw=cfg.raw, config_hash=cfg.digest(), metrics=metrics, promote=promote,
-        notes=f"retrain with new wells {[w.name for w in new_wells]}: {reason}")
+        config_raw=cfg.raw, config_hash=cfg.digest(),
+        metrics=metrics | {"champion_comparison": comparison_dict}, promote=promote,
+        notes=f"retrain with new wells {new_wells}: {reason}")
     return {"challenger": version, "champion_before": manifest["version"],
             "champion_after": read_registry(model_dir)["champion"], "promoted": promote,
-            "reason": reason, "comparison": rows, "new_wells": [w.name for w in new_wells],
-            "champion_mean_f1": champ_mean, "challenger_mean_f1": chal_mean}
+            "reason": reason, "comparison": comparison_dict, "new_wells": new_wells,
+            "flagged_wells": sorted({f["well"] for f in comparison.flags})}
 
 
 def learning_curve_report(wells_path: str | Path, core_path: str | Path, out_dir: str | Path,

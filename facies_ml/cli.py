@@ -148,13 +148,9 @@ def run(args: argparse.Namespace) -> int:
     elif args.command == "retrain":
         result = api.retrain(args.model_dir, args.wells, args.core, args.config,
                              args.core_gamma, force=args.force, progress=_progress)
-        print(f"{'well':<12}{'champion_F1':>13}{'challenger_F1':>15}  basis")
-        for r in result["comparison"]:
-            c = "-" if r["champion_f1"] is None else f"{r['champion_f1']:.3f}"
-            n = "-" if r["challenger_f1"] is None else f"{r['challenger_f1']:.3f}"
-            print(f"{r['well']:<12}{c:>13}{n:>15}  {r['basis']}")
-        verdict = "PROMOTED" if result["promoted"] else "KEPT CHAMPION"
-        print(f"{verdict}: {result['reason']}; serving {result['champion_after']}")
+        from facies_ml.champion import format_comparison
+
+        print(format_comparison(result))
     elif args.command == "models":
         from facies_ml.store import list_versions, set_champion
 

@@ -187,10 +187,42 @@ class CorrelationSettings:
 
 
 @dataclass(frozen=True)
+class PromotionToleranceSettings:
+    """Largest mean per-well loss (challenger - champion) still counted as noise, per metric."""
+
+    lithofacies_f1_macro: float = _fraction()
+    systems_tract_accuracy: float = _fraction()
+    surfaces_within_close: float = _fraction()
+
+
+@dataclass(frozen=True)
+class PromotionSettings:
+    """When ``retrain`` promotes a challenger (see :mod:`facies_ml.champion`)."""
+
+    primary_metric: Literal["lithofacies_f1_macro", "systems_tract_accuracy",
+                            "surfaces_within_close"]
+    tolerance: PromotionToleranceSettings
+    primary_min_gain: float = _limits(0, 1)
+    bootstrap_resamples: int = _limits(100)
+    confidence: float = _limits(0, 1, low_open=True, high_open=True)
+    min_wells: int = _limits(2)
+
+
+@dataclass(frozen=True)
+class CoreCheckSettings:
+    """Flagging a new cored well whose labels disagree with every model (robust z-score)."""
+
+    robust_z: float = _positive()
+    min_spread: float = _fraction()
+    min_other_wells: int = _limits(2)
+
+
+@dataclass(frozen=True)
 class EvaluationSettings:
+    promotion: PromotionSettings
+    core_check: CoreCheckSettings
     surface_match_tolerance: float = _positive()
     surface_close_tolerance: float = _positive()
-    promote_margin: float = _limits(0)
     learning_curve_repeats: int = _limits(1)
     reliability_bins: int = _limits(2)
 

@@ -219,6 +219,13 @@ def test_retrain_with_a_new_cored_well(tiny_basin, fast_config, tmp_path, capsys
     out = capsys.readouterr().out
     assert new_well in out and "new well, champion never saw it" in out
     assert out.count("same held-out fold") == len(wells) - 1
+    # the table: per-metric mean difference with its interval and verdict, then the decision
+    for metric in ("lithofacies_f1_macro", "systems_tract_accuracy", "surfaces_within_close"):
+        line = next(x for x in out.splitlines() if x.startswith(metric))
+        assert " .. " in line or "not scored" in line
+    assert "90% interval" in out
+    # 2 other cored wells: the core check says it was skipped rather than silently passing
+    assert f"note: core check of {new_well}" in out and "skipped" in out
     verdict = [line for line in out.splitlines() if line.startswith(("PROMOTED", "KEPT CHAMPION"))]
     assert len(verdict) == 1
     registry = json.loads((model_dir / "registry.json").read_text())
