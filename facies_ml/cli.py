@@ -6,7 +6,9 @@ from __future__ import annotations
 import argparse
 import errno
 import json
+import signal
 import sys
+import threading
 import traceback
 from enum import IntEnum
 from pathlib import Path
@@ -257,6 +259,18 @@ def _os_error(exc: OSError) -> str:
     return f"{exc.__class__.__name__}: {exc}"
 
 
+def _interrupt(signum: int, frame: Any) -> None:
+    raise KeyboardInterrupt(f"signal {signum}")
+
+
+def _on_sigterm_interrupt() -> Any:
+    """Make SIGTERM (``kill PID``) clean up like Ctrl-C: the run's staging folder is removed
+    and ``--out`` is left as it was. Returns the previous handler (None off the main thread)."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    return signal.signal(signal.SIGTERM, _interrupt)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line ``argv``; returns an :class:`ExitCode` (argparse usage errors
     exit 2 too)."""
@@ -265,6 +279,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     token = run_command.set(["facies-ml", *(sys.argv[1:] if argv is None else argv)])
+    previous = _on_sigterm_interrupt()
     try:
         return int(run(args))
     except InputError as exc:
@@ -291,6 +306,8 @@ def main(argv: list[str] | None = None) -> int:
         return ExitCode.INTERNAL_ERROR
     finally:
         run_command.reset(token)
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":

@@ -6,9 +6,12 @@ from __future__ import annotations
 import errno
 import hashlib
 import json
+import os
 import shutil
+import signal
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import lasio
@@ -344,7 +347,7 @@ def test_some_wells_fail_exits_3_with_the_others_written(trained, tiny_basin, tm
     assert (manifest["wells_done"], manifest["wells_failed"]) == (2, 1)
 
 
-@pytest.mark.parametrize("error", ["internal", "disk_full"])
+@pytest.mark.parametrize("error", ["internal", "disk_full", "sigterm"])
 def test_run_failing_midway_leaves_previous_results_byte_identical(
         trained, tiny_basin, tmp_path, capsys, monkeypatch, error):
     wells = tmp_path / "w"
@@ -362,6 +365,9 @@ def test_run_failing_midway_leaves_previous_results_byte_identical(
         if len(calls) == 2:  # the first well's files are already written
             if error == "disk_full":
                 raise OSError(errno.ENOSPC, "No space left on device", str(path))
+            if error == "sigterm":  # `kill PID` while writing: cleaned up like Ctrl-C
+                os.kill(os.getpid(), signal.SIGTERM)
+                time.sleep(5)  # the handler interrupts this sleep
             raise RuntimeError("writer broke")
         return real(pred, path, table)
 
@@ -371,6 +377,9 @@ def test_run_failing_midway_leaves_previous_results_byte_identical(
     line = _err_line(capsys)
     if error == "disk_full":
         assert rc == ExitCode.BAD_INPUT and "disk is full" in line and "untouched" in line
+    elif error == "sigterm":
+        assert rc == ExitCode.INTERRUPTED and "interrupted" in line
+        assert signal.getsignal(signal.SIGTERM) is signal.SIG_DFL  # handler restored
     else:
         assert rc == ExitCode.INTERNAL_ERROR and "writer broke" in line
     assert len(calls) == 2
