@@ -7,6 +7,7 @@ qualified geoscientist before any decision.
 
 from __future__ import annotations
 
+import contextlib
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -35,6 +36,7 @@ from facies_ml.report.outputs import (
     write_table,
     write_tops,
 )
+from facies_ml.report.run_folder import RunFolder, stale_staging_hours
 from facies_ml.store import load_version, read_registry, save_version
 from facies_ml.wells import Well, read_wells
 
@@ -60,6 +62,16 @@ class CoredProject:
 
 def _config(config: Config | str | Path | None) -> Config:
     return config if isinstance(config, Config) else load_config(config)
+
+
+def _run_folder(out_dir: str | Path, cfg: Config, protect: list[Any] | None = None,
+                **inputs: Any) -> RunFolder:
+    """The staging folder of a run writing ``out_dir`` (see :mod:`facies_ml.report.run_folder`);
+    ``inputs`` name the run's input files/folders (``None`` = not given), hashed into the
+    run manifest; a ``Config`` object given as ``config`` is recorded by its file only."""
+    files = {k: (v if isinstance(v, (str, Path)) else None) for k, v in inputs.items()}
+    return RunFolder(out_dir, inputs=files, protect=protect or [],
+                     stale_hours=stale_staging_hours(cfg.section("report")))
 
 
 def load_project(wells_path: str | Path, core_path: str | Path | None, config: Config,
@@ -90,15 +102,19 @@ def evaluate(wells_path: str | Path, core_path: str | Path, out_dir: str | Path,
              config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
              progress: Progress = None) -> dict[str, Any]:
     """Leave-one-well-out over the cored wells; writes ``metrics.json`` and the held-out
-    figures (``confusion_matrix.png``, ``reliability.png``) in ``out_dir``."""
+    figures (``confusion_matrix.png``, ``reliability.png``) in ``out_dir``, all or nothing
+    (staged, then moved onto ``out_dir`` with ``run_manifest.json``)."""
     from facies_ml.report.plots import Style, evaluation_figures
 
     cfg = _config(config)
-    project = load_project(wells_path, core_path, cfg, core_gamma_path)
-    metrics, _ = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
-    metrics["intake"] = {w.name: w.intake for w in project.cored}
-    write_json(Path(out_dir) / "metrics.json", metrics)
-    evaluation_figures(metrics, cfg.facies.labels, Style(cfg.path("plot_style")), out_dir)
+    with _run_folder(out_dir, cfg, wells=wells_path, core=core_path,
+                     core_gamma=core_gamma_path, config=config) as run:
+        project = load_project(wells_path, core_path, cfg, core_gamma_path)
+        metrics, _ = leave_one_well_out(project.cored, project.labels, cfg, progress=progress)
+        metrics["intake"] = {w.name: w.intake for w in project.cored}
+        write_json(run.path / "metrics.json", metrics)
+        evaluation_figures(metrics, cfg.facies.labels, Style(cfg.path("plot_style")), run.path)
+        run.note(wells_done=len(project.cored))
     return metrics
 
 
@@ -126,7 +142,12 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
             datum_mfs: str | None = None) -> dict[str, Any]:
     """Predict every well under ``wells_path`` with the champion (or ``version``).
 
-    One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason.
+    One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason
+    (wells sharing a name across files are all refused, naming the files). The run is all or
+    nothing on disk: outputs are staged beside ``out_dir`` and replace it as one set with a
+    ``run_manifest.json`` (:mod:`facies_ml.report.run_folder`); when no well could be
+    predicted nothing is written (``summary["written"]`` is False) and ``out_dir`` is left as
+    it was. An empty folder is an :class:`InputError`.
     Writes per well ``<well>.las|.csv|.parquet``; for all wells ``tops.csv``,
     ``landing_zones.csv``, ``failures.csv``, ``summary.json`` (and with ``plots`` a well
     section per well in ``figures/``, a correlation panel and ``report.html``). ``n_jobs`` > 1
@@ -148,39 +169,78 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
         raise InputError(f"datum MFS {datum!r} is not a basin sequence of this model (known: "
                          f"{', '.join(known) or 'none'})")
     files = list_well_files(wells_path)
+    if not files:
+        raise InputError("no well files (*.las, *.csv, *.parquet) in the folder",
+                         file=str(wells_path))
     keep: bool | frozenset[str] = False
     if plots:
         first = files[:max(1, int(report.get("panel_max_wells", 12)))]
         keep = frozenset(panel_wells) if panel_wells else frozenset(str(f) for f in first)
-    rows = run_batch(pipe, files, out_dir, n_jobs=n_jobs, scheduler=scheduler,
-                     progress=progress, keep_predictions=keep,
-                     section_dir=out_dir / "figures" if plots else None)
-    preds = [r[1] for r in rows if isinstance(r, tuple)]
-    results = [r[0] if isinstance(r, tuple) else r for r in rows]
-    summary = write_batch_tables(results, out_dir)
-    summary["model_version"] = manifest["version"]
-    if panel_wells:
-        by_name = {p.well.name: p for p in preds}
-        summary["panel_wells_not_predicted"] = [w for w in panel_wells if w not in by_name]
-        preds = [by_name[w] for w in panel_wells if w in by_name]
-    if plots and preds:
-        summary["figures"] = write_figures(pipe, preds, out_dir, datum=datum,
-                                           sections_drawn=True,
-                                           n_wells_total=len(summary["wells"]))
-    write_json(out_dir / "summary.json", summary)
+    with RunFolder(out_dir, inputs={"wells": wells_path}, protect=[model_dir],
+                   stale_hours=stale_staging_hours(report)) as run:
+        stage = run.path
+        rows = run_batch(pipe, files, stage, n_jobs=n_jobs, scheduler=scheduler,
+                         progress=progress, keep_predictions=keep,
+                         section_dir=stage / "figures" if plots else None)
+        preds = [r[1] for r in rows if isinstance(r, tuple)]
+        results = [r[0] if isinstance(r, tuple) else r for r in rows]
+        if not results:
+            raise InputError("no well found in the well files (only tables that are not well "
+                             "logs)", file=str(wells_path))
+        results, refused = refuse_duplicate_names(results, stage)
+        preds = [p for p in preds if p.well.name not in refused]
+        summary = batch_summary(results)
+        summary["model_version"] = manifest["version"]
+        summary["out"] = str(out_dir)
+        summary["written"] = bool(summary["wells"])
+        if not summary["wells"]:  # no well could be done: keep the previous results as they are
+            run.discard()
+            return summary
+        write_batch_tables(results, stage)
+        if panel_wells:
+            by_name = {p.well.name: p for p in preds}
+            summary["panel_wells_not_predicted"] = [w for w in panel_wells if w not in by_name]
+            preds = [by_name[w] for w in panel_wells if w in by_name]
+        if plots and preds:
+            figures = write_figures(pipe, preds, stage, datum=datum, sections_drawn=True,
+                                    n_wells_total=len(summary["wells"]))
+            summary["figures"] = {k: str(run.final(v)) for k, v in figures.items()}
+        write_json(stage / "summary.json", summary)
+        run.note(model={"folder": Path(model_dir).name, "version": manifest["version"]},
+                 wells_done=len(summary["wells"]), wells_failed=len(summary["failures"]))
     return summary
 
 
-def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, Any]:
-    """tops.csv, landing_zones.csv, failures.csv from the batch results; returns the summary."""
+def refuse_duplicate_names(results: list[WellResult], out_dir: Path
+                           ) -> tuple[list[WellResult], set[str]]:
+    """A well name read from more than one file: every row of that name becomes a failure
+    naming all its files, and its outputs already written in ``out_dir`` (``<well>.las|.csv|
+    .parquet``, ``figures/<well>_section.png``) are removed, so no table mixes two wells.
+    Returns (results, the refused names)."""
+    files: dict[str, list[str]] = {}
+    for r in results:
+        if r.well and r.file not in files.setdefault(r.well, []):
+            files[r.well].append(r.file)
+    refused = {name for name, f in files.items() if len(f) > 1}
+    if not refused:
+        return results, refused
+    out = [r for r in results if r.well not in refused]
+    for name in sorted(refused):
+        names = ", ".join(Path(f).name for f in files[name])
+        reason = (f"well name {name!r} is used by more than one file ({names}); none of them "
+                  "was predicted: give each well its own WELL name")
+        out += [WellResult(well=name, file=f, failure=reason) for f in files[name]]
+        for path in [out_dir / f"{name}{ext}" for ext in (".las", ".csv", ".parquet")] + \
+                [out_dir / "figures" / f"{name}_section.png"]:
+            path.unlink(missing_ok=True)
+    return out, refused
+
+
+def batch_summary(results: list[WellResult]) -> dict[str, Any]:
+    """The run summary (wells done with their notes and picks to review, failures)."""
     ok = [r for r in results if r.failure is None]
     failures = [{"well": r.well, "file": r.file, "reason": r.failure}
                 for r in results if r.failure is not None]
-    write_tops([(r.well, r.depth_unit, r.surfaces) for r in ok], out_dir / "tops.csv")
-    landing = pd.DataFrame([row for r in ok for row in r.landing])
-    write_table(landing, out_dir / "landing_zones.csv", f"facies_ml landing-zone summary. {CAUTION}")
-    write_table(pd.DataFrame(failures, columns=["well", "file", "reason"]),
-                out_dir / "failures.csv")
     return {
         "wells": {r.well: {"file": r.file, "model_used": r.model_used,
                            "out_of_range_fraction": round(r.out_of_range_fraction, 4),
@@ -193,6 +253,19 @@ def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, An
         "failures": failures,
         "caution": CAUTION,
     }
+
+
+def write_batch_tables(results: list[WellResult], out_dir: Path) -> dict[str, Any]:
+    """tops.csv, landing_zones.csv, failures.csv from the batch results; returns the summary."""
+    ok = [r for r in results if r.failure is None]
+    failures = [{"well": r.well, "file": r.file, "reason": r.failure}
+                for r in results if r.failure is not None]
+    write_tops([(r.well, r.depth_unit, r.surfaces) for r in ok], out_dir / "tops.csv")
+    landing = pd.DataFrame([row for r in ok for row in r.landing])
+    write_table(landing, out_dir / "landing_zones.csv", f"facies_ml landing-zone summary. {CAUTION}")
+    write_table(pd.DataFrame(failures, columns=["well", "file", "reason"]),
+                out_dir / "failures.csv")
+    return batch_summary(results)
 
 
 def write_figures(pipe: FaciesPipeline, preds: list[WellPrediction], out_dir: Path,
@@ -350,29 +423,48 @@ def learning_curve_report(wells_path: str | Path, core_path: str | Path, out_dir
                           config: Config | str | Path | None = None,
                           core_gamma_path: str | Path | None = None, repeats: int | None = None,
                           progress: Progress = None) -> pd.DataFrame:
-    """Held-out scores vs number of cored training wells; writes learning_curve.csv/.png."""
+    """Held-out scores vs number of cored training wells; writes learning_curve.csv/.png in
+    ``out_dir`` (all or nothing, with ``run_manifest.json``)."""
     from facies_ml.evaluation import learning_curve
     from facies_ml.report.plots import Style, learning_curve_plot
 
     cfg = _config(config)
-    project = load_project(wells_path, core_path, cfg, core_gamma_path)
-    curve = learning_curve(project.cored, project.labels, cfg, repeats=repeats, progress=progress)
-    out_dir = Path(out_dir)
-    write_table(curve, out_dir / "learning_curve.csv")
-    learning_curve_plot(curve, Style(cfg.path("plot_style")), out_dir / "learning_curve.png")
+    with _run_folder(out_dir, cfg, wells=wells_path, core=core_path,
+                     core_gamma=core_gamma_path, config=config) as run:
+        project = load_project(wells_path, core_path, cfg, core_gamma_path)
+        curve = learning_curve(project.cored, project.labels, cfg, repeats=repeats,
+                               progress=progress)
+        write_table(curve, run.path / "learning_curve.csv")
+        learning_curve_plot(curve, Style(cfg.path("plot_style")), run.path / "learning_curve.png")
+        run.note(wells_done=len(project.cored))
     return curve
 
 
 def rank_cores(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path | None = None,
                exclude: list[str] | None = None) -> pd.DataFrame:
-    """Rank uncored wells by what a core would teach the serving model (core_next_ranking.csv)."""
+    """Rank uncored wells by what a core would teach the serving model.
+
+    With ``out_dir`` writes ``core_next_ranking.csv`` there (all or nothing, with
+    ``run_manifest.json``; nothing when no well could be ranked). Wells that could not be
+    read or predicted are in ``ranking.attrs["failures"]`` (well, file, reason)."""
     from facies_ml.evaluation import rank_core_candidates
 
-    pipe, _ = load_version(model_dir)
-    wells, failures = read_wells(Path(wells_path), pipe.config, on_error="collect")
-    skip = set(exclude or []) | set(getattr(pipe, "training_wells_", []))
-    preds = predict_wells(pipe, [w for w in wells if w.name not in skip], failures)
-    ranking = rank_core_candidates(preds, pipe.config.facies.labels)
+    pipe, manifest = load_version(model_dir)
+    run = None
     if out_dir is not None:
-        write_table(ranking, Path(out_dir) / "core_next_ranking.csv")
+        run = RunFolder(out_dir, inputs={"wells": wells_path}, protect=[model_dir],
+                        stale_hours=stale_staging_hours(pipe.config.section("report")))
+    with run or contextlib.nullcontext():
+        wells, failures = read_wells(Path(wells_path), pipe.config, on_error="collect")
+        skip = set(exclude or []) | set(getattr(pipe, "training_wells_", []))
+        preds = predict_wells(pipe, [w for w in wells if w.name not in skip], failures)
+        ranking = rank_core_candidates(preds, pipe.config.facies.labels)
+        ranking.attrs["failures"] = failures
+        if run is not None:
+            if ranking.empty:
+                run.discard()
+            else:
+                write_table(ranking, run.path / "core_next_ranking.csv")
+                run.note(model={"folder": Path(model_dir).name, "version": manifest["version"]},
+                         wells_done=len(preds), wells_failed=len(failures))
     return ranking

@@ -1,15 +1,53 @@
-"""Command-line shell over :mod:`facies_ml.api`. Bad input exits 2 with one ``error:`` line."""
+"""Command-line shell over :mod:`facies_ml.api`. Bad input exits 2 with one ``error:`` line;
+every exit status is an :class:`ExitCode`."""
 
 from __future__ import annotations
 
 import argparse
+import errno
 import json
+import signal
 import sys
+import threading
 import traceback
+from enum import IntEnum
 from pathlib import Path
+from typing import Any
 
 from facies_ml import CAUTION, __version__
 from facies_ml.errors import InputError
+
+
+class ExitCode(IntEnum):
+    """What a script calling ``facies-ml`` can rely on (also in ``--help`` and README)."""
+
+    OK = 0                #: every well done
+    INTERNAL_ERROR = 1    #: a bug: rerun with --debug and report it
+    BAD_INPUT = 2         #: bad input or --out (also an empty folder, a full disk); nothing changed
+    SOME_WELLS_FAILED = 3  #: outputs written for the wells that worked; failures.csv says why
+    NO_WELL_DONE = 4      #: every well failed; nothing written, the previous --out untouched
+    INTERRUPTED = 130     #: Ctrl-C; nothing changed in --out
+
+
+EXIT_CODES_HELP = """exit codes:
+  0    every well done
+  1    internal error (rerun with --debug and report it)
+  2    bad input: a missing, empty or unreadable input, a bad setting, a refused --out, or a
+       full disk; --out is left as it was
+  3    some wells failed (listed on screen and in failures.csv); the others' outputs written
+  4    no well could be done; nothing written, --out left as it was
+  130  interrupted (Ctrl-C); --out left as it was
+
+outputs: each run writes into a hidden staging folder beside --out and replaces --out as one
+set only when it succeeds, with run_manifest.json (tool and model version, command, inputs and
+outputs with SHA-256, time). --out must be new, empty or written by an earlier facies_ml run."""
+
+
+def _wells_exit(done: int, failed: int) -> ExitCode:
+    """Exit code of a run over wells: all done, some failed, or none done."""
+    if done == 0 and failed > 0:
+        return ExitCode.NO_WELL_DONE
+    return ExitCode.SOME_WELLS_FAILED if failed else ExitCode.OK
 
 
 def _progress(msg: str) -> None:
@@ -31,10 +69,13 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="facies-ml",
         description="Core-calibrated lithofacies and systems-tract prediction for shale wells.",
-        epilog=CAUTION)
+        epilog=f"{EXIT_CODES_HELP}\n\n{CAUTION}",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--version", action="version", version=f"facies_ml {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
     sub = parser.add_subparsers(dest="command", required=True)
+    _exit_help: dict[str, Any] = {"epilog": EXIT_CODES_HELP,
+                                  "formatter_class": argparse.RawDescriptionHelpFormatter}
 
     p = sub.add_parser("synth", help="generate a synthetic demo basin (LAS + core + truth)")
     p.add_argument("--out", required=True)
@@ -52,13 +93,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--model-dir", required=True)
     _add_config(p)
 
-    p = sub.add_parser("evaluate", help="leave-one-well-out over the cored wells")
+    p = sub.add_parser("evaluate", help="leave-one-well-out over the cored wells",
+                       **_exit_help)
     p.add_argument("--wells", required=True)
     _add_core(p)
     p.add_argument("--out", required=True, help="folder for metrics.json")
     _add_config(p)
 
-    p = sub.add_parser("predict", help="predict offset wells with the serving model")
+    p = sub.add_parser("predict", help="predict offset wells with the serving model",
+                       **_exit_help)
     p.add_argument("--model-dir", required=True)
     p.add_argument("--wells", required=True, help="folder of wells or one LAS/CSV file")
     p.add_argument("--out", required=True)
@@ -84,25 +127,29 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--model-dir", required=True)
     p.add_argument("--serve", metavar="VERSION", help="make VERSION the serving model")
 
-    p = sub.add_parser("learning-curve", help="held-out scores vs number of cored wells")
+    p = sub.add_parser("learning-curve", help="held-out scores vs number of cored wells",
+                       **_exit_help)
     p.add_argument("--wells", required=True)
     _add_core(p)
     p.add_argument("--out", required=True)
     p.add_argument("--repeats", type=int, help="random subsets per size (default from config)")
     _add_config(p)
 
-    p = sub.add_parser("rank-cores", help="rank uncored wells by what a core there would teach")
+    p = sub.add_parser("rank-cores", help="rank uncored wells by what a core there would teach",
+                       **_exit_help)
     p.add_argument("--model-dir", required=True)
     p.add_argument("--wells", required=True)
     p.add_argument("--out", help="folder for core_next_ranking.csv")
 
-    p = sub.add_parser("demo", help="evaluate, train and predict on the bundled demo basin")
+    p = sub.add_parser("demo", help="evaluate, train and predict on the bundled demo basin",
+                       **_exit_help)
     p.add_argument("--out", default="demo_output")
     p.add_argument("--wells", help="demo basin folder (default: bundled synthetic_wells/)")
     return parser
 
 
 def run(args: argparse.Namespace) -> int:
+    """Carry out one parsed command; returns its :class:`ExitCode`."""
     from facies_ml import api
 
     if args.command == "synth":
@@ -133,8 +180,13 @@ def run(args: argparse.Namespace) -> int:
                               panel_wells=[w.strip() for w in args.panel_wells.split(",")
                                            if w.strip()] if args.panel_wells else None,
                               datum_mfs=args.datum_mfs)
-        print(f"predicted {len(summary['wells'])} wells with model {summary['model_version']}; "
-              f"{len(summary['failures'])} failed (see failures.csv); outputs in {args.out}")
+        if summary["written"]:
+            print(f"predicted {len(summary['wells'])} wells with model "
+                  f"{summary['model_version']}; {len(summary['failures'])} failed (see "
+                  f"failures.csv); outputs in {args.out}")
+        else:
+            print(f"no well could be predicted with model {summary['model_version']}; nothing "
+                  f"written, {args.out} left as it was")
         for f in summary["failures"]:
             print(f"  failed: {f['well'] or f['file']}: {f['reason']}")
         for name, info in summary["wells"].items():
@@ -145,6 +197,7 @@ def run(args: argparse.Namespace) -> int:
         if summary.get("panel_wells_not_predicted"):
             print("  not on the panel (no such well predicted): "
                   + ", ".join(summary["panel_wells_not_predicted"]))
+        return _wells_exit(len(summary["wells"]), len(summary["failures"]))
     elif args.command == "retrain":
         result = api.retrain(args.model_dir, args.wells, args.core, args.config,
                              args.core_gamma, force=args.force, progress=_progress)
@@ -175,35 +228,82 @@ def run(args: argparse.Namespace) -> int:
         ranking = api.rank_cores(args.model_dir, args.wells, args.out)
         for row in ranking.itertuples():
             print(f"{row.rank}. {row.well}: score {row.score:.3f} ({row.reasons})")
+        failures = ranking.attrs.get("failures", [])
+        for f in failures:
+            print(f"  failed: {f.get('well') or f.get('file')}: {f.get('reason')}")
+        if args.out and not ranking.empty:
+            print(f"wrote {Path(args.out) / 'core_next_ranking.csv'}")
+        elif ranking.empty:
+            print("no well ranked (every well failed or was a training well)"
+                  + (f"; nothing written, {args.out} left as it was" if args.out else ""))
+        return _wells_exit(len(ranking), len(failures))
     elif args.command == "demo":
         from facies_ml.demo import run_demo
 
-        run_demo(args.out, args.wells, progress=_progress)
-    return 0
+        result = run_demo(args.out, args.wells, progress=_progress)
+        return _wells_exit(result["wells_done"], len(result["failures"]))
+    return ExitCode.OK
+
+
+def _os_error(exc: OSError) -> str:
+    """One line for an operating-system error outside a run folder (e.g. a model folder)."""
+    where = f" ({exc.filename})" if exc.filename else ""
+    if exc.errno == errno.ENOSPC:
+        return f"the disk is full (no space left on device){where}"
+    if exc.errno == errno.EDQUOT:
+        return f"the disk quota is exceeded{where}"
+    return f"{exc.__class__.__name__}: {exc}"
+
+
+def _interrupt(signum: int, frame: Any) -> None:
+    raise KeyboardInterrupt(f"signal {signum}")
+
+
+def _on_sigterm_interrupt() -> Any:
+    """Make SIGTERM (``kill PID``) clean up like Ctrl-C: the run's staging folder is removed
+    and ``--out`` is left as it was. Returns the previous handler (None off the main thread)."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    return signal.signal(signal.SIGTERM, _interrupt)
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run the command line ``argv``; returns an :class:`ExitCode` (argparse usage errors
+    exit 2 too)."""
+    from facies_ml.report.run_folder import run_command
+
     parser = build_parser()
     args = parser.parse_args(argv)
+    token = run_command.set(["facies-ml", *(sys.argv[1:] if argv is None else argv)])
+    previous = _on_sigterm_interrupt()
     try:
-        return run(args)
+        return int(run(args))
     except InputError as exc:
         print(f"error: {exc}", file=sys.stderr)
-        return 2
-    except (OSError, ValueError) as exc:
+        return ExitCode.BAD_INPUT
+    except OSError as exc:
+        if args.debug:
+            traceback.print_exc()
+        print(f"error: {_os_error(exc)}", file=sys.stderr)
+        return ExitCode.BAD_INPUT
+    except ValueError as exc:
         if args.debug:
             traceback.print_exc()
         print(f"error: {exc.__class__.__name__}: {exc}", file=sys.stderr)
-        return 2
+        return ExitCode.BAD_INPUT
     except KeyboardInterrupt:
-        print("error: interrupted", file=sys.stderr)
-        return 130
+        print("error: interrupted; --out left as it was", file=sys.stderr)
+        return ExitCode.INTERRUPTED
     except Exception as exc:  # noqa: BLE001 - last resort: one line, not a traceback
         if args.debug:
             traceback.print_exc()
         print(f"error: internal error {exc.__class__.__name__}: {exc} (rerun with --debug)",
               file=sys.stderr)
-        return 1
+        return ExitCode.INTERNAL_ERROR
+    finally:
+        run_command.reset(token)
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":

@@ -24,6 +24,7 @@ from facies_ml.evaluation import (
 )
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.outputs import write_json, write_table
+from facies_ml.report.run_folder import RunFolder, stale_staging_hours
 from facies_ml.resources import demo_wells_dir
 from facies_ml.store import save_version
 from facies_ml.wells.clean import nearest_samples
@@ -104,10 +105,23 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
     """Run the whole job on the demo basin and print a summary; returns the figures."""
     t0 = time.perf_counter()
     wells_dir = Path(wells_dir) if wells_dir else demo_wells_dir()
-    out = Path(out)
     cfg = load_config()
     core = wells_dir / "core_intervals.csv"
     gamma = wells_dir / "core_gamma.csv"
+    with RunFolder(out, inputs={"wells": wells_dir, "core": core,
+                                "core_gamma": gamma if gamma.is_file() else None},
+                   stale_hours=stale_staging_hours(cfg.section("report"))) as run:
+        result = _demo_steps(run, wells_dir, core, gamma, cfg, t0, progress)
+    print(CAUTION)
+    return result
+
+
+def _demo_steps(run: RunFolder, wells_dir: Path, core: Path, gamma: Path, cfg: Any, t0: float,
+                progress: api.Progress) -> dict[str, Any]:
+    """The demo's five steps, writing into the run's staging folder ``run.path``; paths
+    printed are where the files will be once the run is moved onto ``--out``."""
+    out = run.path
+    final = run.requested
     project = api.load_project(wells_dir, core, cfg, gamma if gamma.is_file() else None)
     print(f"Demo basin: {len(project.cored)} cored key wells "
           f"({', '.join(w.name for w in project.cored)}), {len(project.uncored)} offset wells "
@@ -127,7 +141,7 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
                            training_files={w.name: w.source for w in project.cored},
                            config_raw=cfg.raw, config_hash=cfg.digest(), metrics=metrics,
                            notes="demo")
-    print(f"  saved {version} in {out / 'models'}")
+    print(f"  saved {version} in {final / 'models'}")
 
     print("\n3) Predicting the offset wells:")
     failures: list[dict[str, Any]] = list(project.failures)
@@ -189,11 +203,14 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
 
     figures = api.write_figures(pipe, preds, out / "predictions",
                                 extra_sections=evaluation_sections(metrics, curve, cfg, out))
-    summary["figures"] = figures
+    summary["figures"] = {k: str(run.final(v)) for k, v in figures.items()}
     write_json(out / "predictions" / "summary.json", summary)
     elapsed = time.perf_counter() - t0
-    print(f"\nOutputs in {out}/: evaluation/ (metrics.json, learning_curve.csv, figures), "
+    run.note(model={"folder": "models", "version": version}, wells_done=len(preds),
+             wells_failed=len(failures))
+    print(f"\nOutputs in {final}/: evaluation/ (metrics.json, learning_curve.csv, figures), "
           f"models/, predictions/ (<well>.las|csv|parquet, tops.csv, landing_zones.csv, "
-          f"core_next_ranking.csv, figures/, report.html). Finished in {elapsed:.1f} s.")
-    print(CAUTION)
-    return {"metrics": metrics, "truth_scores": scores, "elapsed_s": elapsed}
+          f"core_next_ranking.csv, figures/, report.html), run_manifest.json. "
+          f"Finished in {elapsed:.1f} s.")
+    return {"metrics": metrics, "truth_scores": scores, "elapsed_s": elapsed,
+            "failures": failures, "wells_done": len(preds)}

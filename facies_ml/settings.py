@@ -231,6 +231,7 @@ class EvaluationSettings:
 class ReportSettings:
     datum_sequence: str | None
     panel_max_wells: int = _limits(1)
+    stale_staging_hours: float = _positive()  # hours; see facies_ml.report.run_folder
 
 
 @dataclass(frozen=True)

@@ -3,10 +3,15 @@ a non-zero exit and one ``error:`` line naming the file/well/row, never a traceb
 
 from __future__ import annotations
 
+import errno
+import hashlib
 import json
+import os
 import shutil
+import signal
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import lasio
@@ -144,7 +149,7 @@ def test_predict_one_bad_file_does_not_abort(trained, tiny_basin, tmp_path, caps
     (wells / "BROKEN.las").write_text("~Version\nVERS. 2.0:\n~Curve\n~A\n1 2 3\n")
     rc = main(["predict", "--model-dir", str(trained), "--wells", str(wells),
                "--out", str(tmp_path / "o"), "--no-progress"])
-    assert rc == 0
+    assert rc == 3  # some wells failed, the others' outputs kept (ExitCode.SOME_WELLS_FAILED)
     fails = pd.read_csv(tmp_path / "o" / "failures.csv")
     assert len(fails) == 1 and "BROKEN" in fails["file"].iloc[0]
     assert len(list((tmp_path / "o").glob("*.las"))) == 2
@@ -241,3 +246,199 @@ def test_retrain_with_a_new_cored_well(tiny_basin, fast_config, tmp_path, capsys
     assert main(["models", "--model-dir", str(model_dir), "--serve", "v001"]) == 0
     rows = [json.loads(x) for x in capsys.readouterr().out.splitlines()[1:]]
     assert [r["champion"] for r in rows] == [True, False, False]
+
+
+# ---- exit codes a script can trust; all or nothing on disk -------------------------------
+from facies_ml.cli import ExitCode  # noqa: E402
+from facies_ml.report.run_folder import MANIFEST_NAME, read_run_manifest  # noqa: E402
+
+
+def _snapshot(folder: Path) -> dict[str, bytes]:
+    return {p.relative_to(folder).as_posix(): p.read_bytes()
+            for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _hidden(folder: Path) -> list[str]:
+    return sorted(p.name for p in folder.iterdir() if p.name.startswith("."))
+
+
+def _wells(tiny_basin: Path, folder: Path, n: int = 2) -> list[Path]:
+    folder.mkdir()
+    for f in sorted(tiny_basin.glob("*.las"))[:n]:
+        shutil.copy(f, folder / f.name)
+    return sorted(folder.glob("*.las"))
+
+
+def _predict(trained: Path, wells: Path, out: Path) -> int:
+    return main(["predict", "--model-dir", str(trained), "--wells", str(wells), "--out",
+                 str(out), "--no-progress"])
+
+
+def test_help_and_readme_list_the_exit_codes(capsys):
+    with pytest.raises(SystemExit) as info:
+        main(["--help"])
+    assert info.value.code == 0
+    text = capsys.readouterr().out
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = readme.split("## Exit codes", 1)[1].split("\n## ", 1)[0]
+    for code in ExitCode:
+        assert f"\n  {int(code):<5}" in text
+        assert f"| {int(code)} |" in section
+    assert [int(c) for c in ExitCode] == [0, 1, 2, 3, 4, 130]
+
+
+def test_predict_empty_input_is_bad_input(trained, tiny_basin, tmp_path, capsys):
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    assert _predict(trained, empty, tmp_path / "out") == ExitCode.BAD_INPUT
+    assert "empty" in _err_line(capsys)
+    only_core = tmp_path / "only_core"
+    only_core.mkdir()
+    shutil.copy(_core(tiny_basin), only_core / "core_intervals.csv")  # a table, not a well log
+    assert _predict(trained, only_core, tmp_path / "out") == ExitCode.BAD_INPUT
+    assert "no well found" in _err_line(capsys)
+    assert not (tmp_path / "out").exists() and _hidden(tmp_path) == []
+
+
+def test_rerun_replaces_the_set_and_manifest_hashes_inputs(trained, tiny_basin, tmp_path, capsys):
+    two = _wells(tiny_basin, tmp_path / "two")
+    out = tmp_path / "pred"
+    stale = tmp_path / f".pred.staging-{_dead_pid()}-k3j2"  # left by a killed run
+    stale.mkdir()
+    (stale / "QM-K1.las").write_text("half a file")
+    assert _predict(trained, tmp_path / "two", out) == ExitCode.OK
+    assert not stale.exists() and _hidden(tmp_path) == []
+    first = read_run_manifest(out)
+    assert first["model"]["version"] == "v001" and first["command"][:2] == ["facies-ml", "predict"]
+    assert {r["file"]: r["sha256"] for r in first["inputs"]} == {
+        f.name: hashlib.sha256(f.read_bytes()).hexdigest() for f in two}
+    assert set(first["outputs"]) == set(_snapshot(out)) - {MANIFEST_NAME}
+    for name, digest in first["outputs"].items():
+        assert hashlib.sha256((out / name).read_bytes()).hexdigest() == digest
+    summary = json.loads((out / "summary.json").read_text())
+    assert ".staging-" not in json.dumps(summary)
+    # a rerun on one well replaces the whole set: the other well's files are gone
+    one = _wells(tiny_basin, tmp_path / "one", n=1)
+    assert _predict(trained, tmp_path / "one", out) == ExitCode.OK
+    names = {p.stem for p in out.glob("*.las")}
+    assert names == {one[0].stem}
+    assert [r["file"] for r in read_run_manifest(out)["inputs"]] == [one[0].name]
+    assert _hidden(tmp_path) == []
+
+
+def test_all_wells_fail_exits_4_and_keeps_previous_results(trained, tiny_basin, tmp_path, capsys):
+    out = tmp_path / "pred"
+    _wells(tiny_basin, tmp_path / "good", n=1)
+    assert _predict(trained, tmp_path / "good", out) == ExitCode.OK
+    before = _snapshot(out)
+    bad = tmp_path / "bad"
+    bad.mkdir()
+    for name in ("BROKEN1.las", "BROKEN2.las"):
+        (bad / name).write_text("~Version\nVERS. 2.0:\n~Curve\n~A\n1 2 3\n")
+    capsys.readouterr()
+    assert _predict(trained, bad, out) == ExitCode.NO_WELL_DONE
+    printed = capsys.readouterr().out
+    assert "BROKEN1" in printed and "BROKEN2" in printed and "nothing written" in printed
+    assert _snapshot(out) == before and _hidden(tmp_path) == []
+
+
+def test_some_wells_fail_exits_3_with_the_others_written(trained, tiny_basin, tmp_path):
+    wells = _wells(tiny_basin, tmp_path / "w")
+    (tmp_path / "w" / "BROKEN.las").write_text("~Version\nVERS. 2.0:\n~Curve\n~A\n1 2 3\n")
+    out = tmp_path / "pred"
+    assert _predict(trained, tmp_path / "w", out) == ExitCode.SOME_WELLS_FAILED
+    assert {p.stem for p in out.glob("*.las")} == {f.stem for f in wells}
+    fails = pd.read_csv(out / "failures.csv")
+    assert list(fails["well"]) == ["BROKEN"]
+    manifest = read_run_manifest(out)
+    assert (manifest["wells_done"], manifest["wells_failed"]) == (2, 1)
+
+
+@pytest.mark.parametrize("error", ["internal", "disk_full", "sigterm"])
+def test_run_failing_midway_leaves_previous_results_byte_identical(
+        trained, tiny_basin, tmp_path, capsys, monkeypatch, error):
+    wells = tmp_path / "w"
+    _wells(tiny_basin, wells)
+    out = tmp_path / "pred"
+    assert _predict(trained, wells, out) == ExitCode.OK
+    before = _snapshot(out)
+    import facies_ml.batch as batch
+
+    real = batch.write_prediction_parquet
+    calls = []
+
+    def second_call_fails(pred, path, table=None):
+        calls.append(path)
+        if len(calls) == 2:  # the first well's files are already written
+            if error == "disk_full":
+                raise OSError(errno.ENOSPC, "No space left on device", str(path))
+            if error == "sigterm":  # `kill PID` while writing: cleaned up like Ctrl-C
+                os.kill(os.getpid(), signal.SIGTERM)
+                time.sleep(5)  # the handler interrupts this sleep
+            raise RuntimeError("writer broke")
+        return real(pred, path, table)
+
+    monkeypatch.setattr(batch, "write_prediction_parquet", second_call_fails)
+    capsys.readouterr()
+    rc = _predict(trained, wells, out)
+    line = _err_line(capsys)
+    if error == "disk_full":
+        assert rc == ExitCode.BAD_INPUT and "disk is full" in line and "untouched" in line
+    elif error == "sigterm":
+        assert rc == ExitCode.INTERRUPTED and "interrupted" in line
+        assert signal.getsignal(signal.SIGTERM) is signal.SIG_DFL  # handler restored
+    else:
+        assert rc == ExitCode.INTERNAL_ERROR and "writer broke" in line
+    assert len(calls) == 2
+    assert _snapshot(out) == before and _hidden(tmp_path) == []
+
+
+def test_refused_out_folders(trained, tiny_basin, tmp_path, capsys):
+    foreign = tmp_path / "documents"
+    foreign.mkdir()
+    (foreign / "report.docx").write_text("someone's work")
+    wells = _wells(tiny_basin, tmp_path / "w", n=1)
+    assert _predict(trained, tmp_path / "w", foreign) == ExitCode.BAD_INPUT
+    assert "not written by a facies_ml run" in _err_line(capsys)
+    assert _snapshot(foreign) == {"report.docx": b"someone's work"}
+    # an --out that holds the wells (or the model) would be replaced with them
+    assert _predict(trained, wells[0], tmp_path) == ExitCode.BAD_INPUT
+    assert "holds the wells input" in _err_line(capsys)
+    assert _predict(trained, tmp_path / "w", trained) == ExitCode.BAD_INPUT
+    assert "holds the model input" in _err_line(capsys)
+    assert _hidden(tmp_path) == []
+
+
+def test_duplicate_well_names_refused_naming_both_files(trained, tiny_basin, tmp_path, capsys):
+    wells = _wells(tiny_basin, tmp_path / "w")
+    dup = tmp_path / "w" / "zz_copy.las"
+    shutil.copy(wells[0], dup)  # same WELL item in the header, another file name
+    name = lasio.read(wells[0]).well["WELL"].value
+    out = tmp_path / "pred"
+    assert _predict(trained, tmp_path / "w", out) == ExitCode.SOME_WELLS_FAILED
+    fails = pd.read_csv(out / "failures.csv")
+    assert sorted(Path(f).name for f in fails["file"]) == sorted([wells[0].name, dup.name])
+    assert (fails["well"] == name).all()
+    assert all(wells[0].name in r and dup.name in r for r in fails["reason"])
+    assert not list(out.glob(f"{name}.*"))
+    tops = pd.read_csv(out / "tops.csv", comment="#")
+    assert name not in set(tops["well"]) and set(tops["well"]) == {wells[1].stem}
+    printed = capsys.readouterr().out
+    assert dup.name in printed and wells[0].name in printed
+
+
+def test_rank_cores_out_is_a_run_folder(trained, tiny_basin, tmp_path, capsys):
+    out = tmp_path / "rank"
+    rc = main(["rank-cores", "--model-dir", str(trained), "--wells", str(tiny_basin),
+               "--out", str(out)])
+    assert rc == ExitCode.OK
+    ranking = pd.read_csv(out / "core_next_ranking.csv")
+    cored = set(pd.read_csv(_core(tiny_basin))["well"])
+    assert len(ranking) >= 1 and not set(ranking["well"]) & cored
+    assert read_run_manifest(out)["model"]["version"] == "v001"
+
+
+def _dead_pid() -> int:
+    proc = subprocess.Popen([sys.executable, "-c", "pass"])
+    proc.wait()
+    return proc.pid

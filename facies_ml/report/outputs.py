@@ -1,8 +1,11 @@
 """Files a user acts on: per-well prediction tables (CSV, LAS 2.0), the tops table, metrics.
 
-Every file is written to a temporary name and renamed into place, so an interrupted run never
-leaves a partially written output. Every file carries the caution that predictions are
-probabilistic and must be reviewed by a qualified geoscientist.
+Every file is written to a hidden temporary name (``.<name>.<random>.partial``) and renamed
+into place, so an interrupted write never leaves a partially written output; a failed write
+removes its temporary file. Commands write into a staging folder that is moved onto ``--out``
+only when the whole run succeeded (:mod:`facies_ml.report.run_folder`). Every file carries
+the caution that predictions are probabilistic and must be reviewed by a qualified
+geoscientist.
 """
 
 from __future__ import annotations
@@ -20,6 +23,7 @@ import pandas as pd
 
 from facies_ml import CAUTION, __version__
 from facies_ml.pipeline import WellPrediction
+from facies_ml.report.run_folder import PARTIAL_SUFFIX
 from facies_ml.wells.clean import nearest_samples
 
 _UMASK = os.umask(0)
@@ -27,10 +31,13 @@ os.umask(_UMASK)
 
 
 def atomic_write(path: str | Path, write: Callable[[Path], None]) -> Path:
-    """Call ``write(tmp_path)`` then rename the temporary file onto ``path``."""
+    """Call ``write(tmp_path)`` then rename the temporary file onto ``path``.
+
+    The temporary file (``.<name>.<random>.partial`` beside ``path``) is removed if ``write``
+    fails or is interrupted, so no hidden file is left behind."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=PARTIAL_SUFFIX, dir=path.parent)
     os.close(fd)
     try:
         write(Path(tmp))
