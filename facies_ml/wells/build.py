@@ -209,6 +209,9 @@ def build_well(raw: RawWell, config: Config) -> Well:
                              **where)
         bad = int(text.sum())
         inf = np.isinf(vals)
+        if role is None and bad and bad == int((text | np.isfinite(vals)).sum()):
+            notes.append(f"column {c.mnemonic!r} holds text only; not a curve")
+            bad = 0
         if bad or inf.any():
             parts = []
             if bad:

@@ -27,9 +27,7 @@ def parse_numbers(values: Iterable[object]) -> tuple[np.ndarray, np.ndarray]:
     as_text = s.astype("string").str.strip()
     blank = (s.isna() | (as_text == "") | as_text.isna()).to_numpy(dtype=bool)
     out = pd.to_numeric(as_text.where(~blank), errors="coerce").to_numpy(dtype=float)
-    lowered = as_text.str.lower().to_numpy(dtype=object)
-    nan_text = np.array([t in ("nan", "-nan", "+nan") for t in lowered], dtype=bool)
-    return out, (np.isnan(out) & ~blank) | nan_text
+    return out, np.isnan(out) & ~blank      # "NaN" text is marked too: not blank, no number
 
 
 def to_numeric(values: Iterable[object]) -> tuple[np.ndarray, int]:
