@@ -56,7 +56,9 @@ def read_wells(path: str | Path, config: Config,
     ``problems`` as ``{"file", "well", "reason"}``; with ``"raise"`` the first error propagates.
     Tables that are not well logs (no depth column, or no curve known to the alias table,
     e.g. ``core_intervals.csv``) are never read as wells and are not failures: each is noted
-    on the ``facies_ml.wells`` logger. A well name seen twice is an error for the second file.
+    on the ``facies_ml.wells`` logger. A well name seen twice is an error naming both files
+    (with ``"collect"``: a failure of the second file's well, with ``"duplicate_of"`` naming
+    the first file; the other wells of that file are still read).
     """
     if on_error not in ("raise", "collect"):
         raise InputError(f"on_error must be 'raise' or 'collect', not {on_error!r}")
@@ -84,16 +86,23 @@ def read_wells(path: str | Path, config: Config,
                     log.info("skipped %s: not a well table (%s)", f, why)
                     continue
                 got = _table_wells(f, config, None, None, None, failures)
-            for w in got:
-                if w.name in seen:
-                    raise InputError(f"well name also used by {seen[w.name]}", file=str(f),
-                                     well=w.name)
-                seen[w.name] = str(f)
-                wells.append(w)
         except InputError as err:
             if failures is None:
                 raise
             failures.append({"file": str(f), "well": err.well, "reason": str(err)})
+            continue
+        for w in got:   # each well on its own: a repeated name never hides the file's others
+            if w.name in seen:
+                err = InputError(f"well name used by both {Path(seen[w.name]).name} and "
+                                 f"{f.name}; rename one (~Well WELL or the well column)",
+                                 file=str(f), well=w.name)
+                if failures is None:
+                    raise err
+                failures.append({"file": str(f), "well": w.name, "reason": str(err),
+                                 "duplicate_of": seen[w.name]})
+                continue
+            seen[w.name] = str(f)
+            wells.append(w)
     return wells, failures or []
 
 
