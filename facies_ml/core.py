@@ -301,9 +301,10 @@ def check_core_overlap(well: Well, intervals: pd.DataFrame, shift: float = 0.0) 
         if alt.any():
             name = "metres" if other == "m" else "feet"
             raise InputError(f"{base}; the core would overlap if the log depths were {name}: "
-                             f"fix the log's depth unit (LAS ~Curve depth and ~Well STRT/STOP/"
-                             f"STEP in {other.upper()}; table: --depth-unit {other}) or give "
-                             f"the core depths in {u}", file=well.source or None, well=well.name)
+                             f"if they are, label the log's depth {other.upper()} (LAS ~Curve "
+                             f"depth and ~Well STRT/STOP/STEP; table: --depth-unit {other}) and "
+                             f"give this well's core depths in {other} (core depths are in the "
+                             "log file's depth unit)", file=well.source or None, well=well.name)
         raise InputError(f"{base}; check the core file's well names and depths (core depths "
                          "are in the log file's depth unit)", file=well.source or None,
                          well=well.name)

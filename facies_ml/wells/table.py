@@ -30,7 +30,8 @@ TABLE_SUFFIXES = (".csv", ".parquet")
 UNIT_WORDS = {"ft": "ft", "feet": "ft", "foot": "ft", "f": "ft", "m": "m", "metres": "m",
               "meters": "m", "metre": "m", "meter": "m"}
 UNIT_COLUMN = "depth_unit"
-_UNIT_SUFFIX = r"[_ .(\[]\s*(" + "|".join(sorted(UNIT_WORDS, key=len, reverse=True)) + r")\s*[)\]]?"
+_UNIT_SUFFIX = (r"(?:[_ .]+[(\[]?|[(\[])\s*("
+                + "|".join(sorted(UNIT_WORDS, key=len, reverse=True)) + r")\s*[)\]]?")
 HEAD_BYTES = 1 << 20   # bytes read to look at a CSV's header row
 
 
@@ -81,11 +82,13 @@ def _find(columns: list[str], wanted: list[str]) -> str | None:
 
 
 def read_frame(path: str | Path, nrows: int | None = None,
-               warnings: list[str] | None = None) -> pd.DataFrame:
+               warnings: list[str] | None = None, literal: bool = False) -> pd.DataFrame:
     """Read a CSV (all cells as text) or Parquet file; problems become :class:`InputError`.
 
     A CSV that is not UTF-8 is decoded as Windows-1252 / Latin-1 and a warning naming the file
-    and byte position is appended to ``warnings`` (when given).
+    and byte position is appended to ``warnings`` (when given). With ``literal`` only an empty
+    CSV cell is missing: text such as ``NaN``, ``NA`` or ``null`` stays text, so the well
+    reader reports it as a cell that is not a number.
     """
     path = Path(path)
     src = str(path)
@@ -104,8 +107,9 @@ def read_frame(path: str | Path, nrows: int | None = None,
             text, warning = decode_text(raw, src)
             if warning and warnings is not None:
                 warnings.append(warning)
+            extra: dict[str, Any] = {"keep_default_na": False, "na_values": [""]} if literal else {}
             frame = pd.read_csv(io.StringIO(text), dtype=str, nrows=nrows,
-                                skipinitialspace=True)
+                                skipinitialspace=True, **extra)
     except pd.errors.EmptyDataError:
         raise InputError("table is empty", file=src) from None
     except Exception as exc:  # parser errors, bad encodings, bad parquet
@@ -171,7 +175,7 @@ def table_raw_wells(path: str | Path, config: Config, well_column: str | None = 
     """Split a table into raw wells (file row order kept within each well)."""
     src = str(path)
     file_warnings: list[str] = []
-    frame = read_frame(path, warnings=file_warnings)
+    frame = read_frame(path, warnings=file_warnings, literal=True)
     cols = list(frame.columns)
     t = table_settings(config)
     aliases = alias_table(config)
