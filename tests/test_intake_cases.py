@@ -324,3 +324,18 @@ def test_latin1_core_csv_is_read_with_a_warning(tmp_path, cfg, warned):
     assert list(out["well"]) == ["QM-K1"] and out["lithofacies_label"].iloc[0] == "ORSM"
     pos = text.encode("latin-1").index(b"\xe9")
     assert f"core.csv is not UTF-8 (first byte that is not, 0xe9, at byte {pos})" in warned.text
+
+
+def test_csv_line_with_a_missing_value_is_an_error(tmp_path, cfg):
+    p = tmp_path / "t.csv"
+    lines = ["well,depth_ft,GR,RHOB"] + [f"QM-O3,{100 + 0.5 * i},{50 + i % 9},2.4{i % 7}"
+                                         for i in range(20)]
+    lines[8] = "QM-O3,103.5,57"                                   # RHOB missing on line 9
+    p.write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match=r"line 9 has 3 values for 4 columns") as err:
+        read_table(p, cfg)
+    assert str(p) in str(err.value)
+    lines[8] = "QM-O3,103.5,57,2.41,9"                            # one value too many
+    p.write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match=r"line 9, saw 5") as err:  # the CSV parser's words
+        read_table(p, cfg)

@@ -56,7 +56,8 @@ def read_wells(path: str | Path, config: Config,
     ``problems`` as ``{"file", "well", "reason"}``; with ``"raise"`` the first error propagates.
     Tables that are not well logs (no depth column, or no curve known to the alias table,
     e.g. ``core_intervals.csv``) are never read as wells and are not failures: each is noted
-    on the ``facies_ml.wells`` logger. A well name seen twice is an error naming both files
+    on the ``facies_ml.wells`` logger; if no file at all is a well file, that is an error
+    naming the skipped files. A well name seen twice is an error naming both files
     (with ``"collect"``: a failure of the second file's well, with ``"duplicate_of"`` naming
     the first file; the other wells of that file are still read).
     """
@@ -76,6 +77,7 @@ def read_wells(path: str | Path, config: Config,
     failures: list[dict[str, Any]] | None = [] if on_error == "collect" else None
     wells: list[Well] = []
     seen: dict[str, str] = {}
+    skipped: list[str] = []
     for f in files:
         try:
             if f.suffix.lower() == ".las":
@@ -84,6 +86,7 @@ def read_wells(path: str | Path, config: Config,
                 ok, why = table_kind(f, config)
                 if not ok:
                     log.info("skipped %s: not a well table (%s)", f, why)
+                    skipped.append(f"{f.name} ({why})")
                     continue
                 got = _table_wells(f, config, None, None, None, failures)
         except InputError as err:
@@ -103,6 +106,10 @@ def read_wells(path: str | Path, config: Config,
                 continue
             seen[w.name] = str(f)
             wells.append(w)
+    if not wells and not failures and skipped:
+        raise InputError("no well file: " + "; ".join(skipped[:3])
+                         + (f" and {len(skipped) - 3} more" if len(skipped) > 3 else ""),
+                         file=str(path))
     return wells, failures or []
 
 

@@ -109,7 +109,7 @@ def _read_fast(src: str) -> tuple[Any, list[Any], list[str]] | None:
         data: Any = np.loadtxt(io.BytesIO(body), dtype=float, comments="#", ndmin=2)
     except ValueError:
         data = None
-    if data is None or data.shape[1] != n:
+    if data is None or data.shape[1] != n or np.isnan(data).any():   # NaN: "nan" text cells
         first_line = raw[:match.end()].count(b"\n") + 1
         data = _rows(body, first_line, n, src)
     if data.shape[0] == 0:

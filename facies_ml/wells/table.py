@@ -110,12 +110,28 @@ def read_frame(path: str | Path, nrows: int | None = None,
             extra: dict[str, Any] = {"keep_default_na": False, "na_values": [""]} if literal else {}
             frame = pd.read_csv(io.StringIO(text), dtype=str, nrows=nrows,
                                 skipinitialspace=True, **extra)
+            if literal:
+                _check_short_lines(text, frame.shape[1], src)
+    except InputError:
+        raise
     except pd.errors.EmptyDataError:
         raise InputError("table is empty", file=src) from None
     except Exception as exc:  # parser errors, bad encodings, bad parquet
         raise InputError(f"cannot read table ({one_line(exc)})", file=src) from None
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame
+
+
+def _check_short_lines(text: str, n_columns: int, src: str) -> None:
+    """A CSV line with fewer values than the header has columns (pandas would fill the rest
+    as blank) is an :class:`InputError` naming the line; a line with more values is already
+    refused by the CSV parser. Files with quoted cells are left to the parser."""
+    if n_columns < 2 or '"' in text:
+        return
+    for k, line in enumerate(text.splitlines()[1:], start=2):
+        if line.strip() and line.count(",") < n_columns - 1:
+            raise InputError(f"line {k} has {line.count(',') + 1} values for {n_columns} "
+                             f"columns (a missing value): {line[:60]!r}", file=src)
 
 
 def table_kind(path: str | Path, config: Config) -> tuple[bool, str]:
