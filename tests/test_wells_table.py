@@ -125,7 +125,7 @@ def test_duplicate_well_name_in_folder(tmp_path, cfg):
     las_file(tmp_path / "a.las", "QM-K1")
     las_file(tmp_path / "b.las", "QM-K1")
     wells, failures = read_wells(tmp_path, cfg, on_error="collect")
-    assert len(wells) == 1 and "also used by" in failures[0]["reason"]
+    assert len(wells) == 1 and "used by both a.las and b.las" in failures[0]["reason"]
 
 
 def test_missing_folder(tmp_path, cfg):
