@@ -20,7 +20,7 @@ import pandas as pd
 from facies_ml.config import Config
 from facies_ml.errors import InputError
 from facies_ml.wells import clean
-from facies_ml.wells.model import ROLES, Well, depth_factor
+from facies_ml.wells.model import FT_PER_M, ROLES, Well, depth_factor
 from facies_ml.wells.roles import AliasTable, load_alias_table
 
 ROLE_UNITS = {
@@ -185,7 +185,7 @@ def build_well(raw: RawWell, config: Config) -> Well:
         warnings.append(
             f"{where_text(raw.name, raw.source, raw.depth_mnemonic)}: depth labelled "
             f"{raw.depth_unit_text or 'ft'!r} (feet) but its step {file_step:g} is a metric "
-            f"step ({file_step / 0.3048:.3g} ft if the depths are metres), depths "
+            f"step ({file_step * FT_PER_M:.3g} ft if the depths are metres), depths "
             f"{d[0]:g}-{d[-1]:g}; if they are metres, fix the depth unit (LAS: ~Curve "
             f"{raw.depth_mnemonic}.M and ~Well STRT/STOP/STEP .M; table: --depth-unit m)")
 

@@ -140,4 +140,6 @@ def intake_summary(well: Well) -> str:
         parts.append(f"core shift {ds['shift']:+g}{' applied' if ds['applied'] else ' not applied'}")
     if i.get("notes"):
         parts.append(f"{len(i['notes'])} note(s)")
+    if i.get("warnings"):
+        parts.append(f"{len(i['warnings'])} warning(s)")
     return "; ".join(parts)
