@@ -39,6 +39,7 @@ from facies_ml.report.outputs import (
 from facies_ml.report.run_folder import RunFolder, stale_staging_hours
 from facies_ml.store import load_version, read_registry, save_version
 from facies_ml.wells import Well, read_wells
+from facies_ml.wells.table import with_table_depth_unit
 
 Progress = Callable[[str], None] | None
 
@@ -76,18 +77,26 @@ def _run_folder(out_dir: str | Path, cfg: Config, protect: list[Any] | None = No
 
 def load_project(wells_path: str | Path, core_path: str | Path | None, config: Config,
                  core_gamma_path: str | Path | None = None, on_error: str = "raise") -> CoredProject:
-    """Read and condition every well under ``wells_path`` and align the core labels to them."""
+    """Read and condition every well under ``wells_path`` and align the core labels to them.
+
+    Refuses (:class:`InputError`) two files giving the same well name (naming both files, even
+    with ``on_error="collect"``), and a cored well whose core intervals all lie outside its
+    logged depths (see :func:`facies_ml.core.check_core_overlap`). A training well with a
+    curve that is logged but unusable (all null or constant) is a console warning: the model
+    keeps that curve's features and this well has missing values for them.
+    """
+    from facies_ml.wells.build import emit_warnings, where_text
+
     wells_path = Path(wells_path)
     if not wells_path.exists():
         raise InputError("wells folder or file not found", file=str(wells_path))
     wells, failures = read_wells(wells_path, config, on_error=on_error)
+    dup = next((f for f in failures if f.get("duplicate_of")), None)
+    if dup is not None:
+        raise InputError(dup["reason"])
     if not wells:
         raise InputError("no readable well found", file=str(wells_path))
     names = [w.name for w in wells]
-    dupes = sorted({n for n in names if names.count(n) > 1})
-    if dupes:
-        raise InputError(f"well name(s) appear in more than one file: {', '.join(dupes)}",
-                         file=str(wells_path))
     labels: dict[str, pd.DataFrame] = {}
     if core_path is not None:
         core_path = Path(core_path)
@@ -95,6 +104,16 @@ def load_project(wells_path: str | Path, core_path: str | Path | None, config: C
         gamma = read_core_gamma(core_gamma_path) if core_gamma_path else None
         cored = [w for w in wells if w.name in set(intervals["well"])]
         labels = align_core_labels(cored, intervals, gamma, config)
+        for w in cored:
+            bad = w.intake.get("unusable_curves") or {}
+            if bad:
+                what = ", ".join(f"{v['mnemonic']} ({role}: {v['reason']})"
+                                 for role, v in bad.items())
+                msg = (f"{where_text(w.name, w.source)}: training well without usable {what}; "
+                       "the model keeps these curves' features (trained on the other wells), "
+                       "this well has missing values for them")
+                w.intake.setdefault("warnings", []).append(msg)
+                emit_warnings([msg])
     return CoredProject(wells=wells, labels=labels, failures=failures)
 
 
@@ -139,7 +158,7 @@ def train(wells_path: str | Path, core_path: str | Path, model_dir: str | Path,
 def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
             version: str | None = None, n_jobs: int = 1, scheduler: str | None = None,
             plots: bool = False, progress: bool = True, panel_wells: list[str] | None = None,
-            datum_mfs: str | None = None) -> dict[str, Any]:
+            datum_mfs: str | None = None, depth_unit: str | None = None) -> dict[str, Any]:
     """Predict every well under ``wells_path`` with the champion (or ``version``).
 
     One bad well never aborts the batch: it is listed in ``failures.csv`` with the reason
@@ -160,6 +179,7 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
     Only those wells' predictions are held in memory.
     """
     pipe, manifest = load_version(model_dir, version)
+    pipe.config = with_table_depth_unit(pipe.config, depth_unit)   # --depth-unit (tables)
     out_dir = Path(out_dir)
     report = pipe.config.section("report")
     datum = datum_mfs if datum_mfs is not None else report["datum_sequence"]
@@ -343,7 +363,8 @@ def write_predictions(pipe: FaciesPipeline, preds: list[WellPrediction],
 
 def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path,
             config: Config | str | Path | None = None, core_gamma_path: str | Path | None = None,
-            force: bool = False, progress: Progress = None) -> dict[str, Any]:
+            force: bool = False, progress: Progress = None,
+            depth_unit: str | None = None) -> dict[str, Any]:
     """Champion/challenger: fit a challenger on all cored wells, save it as a new version and
     promote it only when :mod:`facies_ml.champion`'s rule allows (or ``force``).
 
@@ -372,6 +393,7 @@ def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path
     evaluation = check_settings(rule_cfg.raw).evaluation
     rule = PromotionRule.from_settings(evaluation.promotion, rule_cfg.seed)
     cfg = rule_cfg if config is not None else champion.config
+    cfg = with_table_depth_unit(cfg, depth_unit)                  # --depth-unit (tables)
     project = load_project(wells_path, core_path, cfg, core_gamma_path)
     old_wells = set(manifest.get("training_wells", {}))
     new_wells = [w.name for w in project.cored if w.name not in old_wells]

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from facies_ml import CAUTION, __version__
+from facies_ml.config import Config
 from facies_ml.errors import InputError
 
 
@@ -65,6 +66,22 @@ def _add_core(p: argparse.ArgumentParser, required: bool = True) -> None:
                    "estimate the core-to-log depth shift")
 
 
+def _add_depth_unit(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--depth-unit", choices=["ft", "m"],
+                   help="depth unit of CSV/Parquet well tables whose depth column name gives "
+                        "none (e.g. plain 'depth'); sets intake.table.depth_unit")
+
+
+def _settings(args: argparse.Namespace) -> Config | str | None:
+    """``--config`` as given, or loaded with ``--depth-unit`` applied."""
+    if getattr(args, "depth_unit", None) is None:
+        return args.config
+    from facies_ml.config import load_config
+    from facies_ml.wells.table import with_table_depth_unit
+
+    return with_table_depth_unit(load_config(args.config), args.depth_unit)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="facies-ml",
@@ -92,6 +109,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_core(p)
     p.add_argument("--model-dir", required=True)
     _add_config(p)
+    _add_depth_unit(p)
 
     p = sub.add_parser("evaluate", help="leave-one-well-out over the cored wells",
                        **_exit_help)
@@ -99,6 +117,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_core(p)
     p.add_argument("--out", required=True, help="folder for metrics.json")
     _add_config(p)
+    _add_depth_unit(p)
 
     p = sub.add_parser("predict", help="predict offset wells with the serving model",
                        **_exit_help)
@@ -115,12 +134,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--datum-mfs", help="hang the panel on the MFS of this basin-wide sequence "
                    "name, e.g. S3 (default report.datum_sequence; none = the MFS most wells share)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    _add_depth_unit(p)
 
     p = sub.add_parser("retrain", help="champion/challenger retrain with new cored wells")
     p.add_argument("--model-dir", required=True)
     p.add_argument("--wells", required=True)
     _add_core(p)
     _add_config(p)
+    _add_depth_unit(p)
     p.add_argument("--force", action="store_true", help="promote the challenger regardless")
 
     p = sub.add_parser("models", help="list model versions, or roll back / promote one")
@@ -134,6 +155,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True)
     p.add_argument("--repeats", type=int, help="random subsets per size (default from config)")
     _add_config(p)
+    _add_depth_unit(p)
 
     p = sub.add_parser("rank-cores", help="rank uncored wells by what a core there would teach",
                        **_exit_help)
@@ -164,12 +186,12 @@ def run(args: argparse.Namespace) -> int:
     elif args.command == "evaluate":
         from facies_ml.evaluation import format_table
 
-        metrics = api.evaluate(args.wells, args.core, args.out, args.config, args.core_gamma,
+        metrics = api.evaluate(args.wells, args.core, args.out, _settings(args), args.core_gamma,
                                progress=_progress)
         print(format_table(metrics))
         print(f"wrote {Path(args.out) / 'metrics.json'}")
     elif args.command == "train":
-        version, pipe = api.train(args.wells, args.core, args.model_dir, args.config,
+        version, pipe = api.train(args.wells, args.core, args.model_dir, _settings(args),
                                   args.core_gamma, progress=_progress)
         print(f"saved model {version} trained on {', '.join(pipe.training_wells_)} "
               f"in {args.model_dir}")
@@ -179,7 +201,7 @@ def run(args: argparse.Namespace) -> int:
                               progress=not args.no_progress,
                               panel_wells=[w.strip() for w in args.panel_wells.split(",")
                                            if w.strip()] if args.panel_wells else None,
-                              datum_mfs=args.datum_mfs)
+                              datum_mfs=args.datum_mfs, depth_unit=args.depth_unit)
         if summary["written"]:
             print(f"predicted {len(summary['wells'])} wells with model "
                   f"{summary['model_version']}; {len(summary['failures'])} failed (see "
@@ -200,7 +222,8 @@ def run(args: argparse.Namespace) -> int:
         return _wells_exit(len(summary["wells"]), len(summary["failures"]))
     elif args.command == "retrain":
         result = api.retrain(args.model_dir, args.wells, args.core, args.config,
-                             args.core_gamma, force=args.force, progress=_progress)
+                             args.core_gamma, force=args.force, progress=_progress,
+                             depth_unit=args.depth_unit)
         from facies_ml.champion import format_comparison
 
         print(format_comparison(result))
@@ -213,7 +236,7 @@ def run(args: argparse.Namespace) -> int:
         for row in list_versions(args.model_dir):
             print(json.dumps(row))
     elif args.command == "learning-curve":
-        curve = api.learning_curve_report(args.wells, args.core, args.out, args.config,
+        curve = api.learning_curve_report(args.wells, args.core, args.out, _settings(args),
                                           args.core_gamma, args.repeats, progress=_progress)
         agg = curve.groupby("n_training_wells")[["lithofacies_f1_macro", "systems_tract_accuracy"]]
         print(f"{'training wells':>15}{'facies_F1':>12}{'sd':>8}{'tract_acc':>12}{'sd':>8}")

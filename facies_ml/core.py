@@ -23,9 +23,14 @@ MIN_CORE_GAMMA_SAMPLES = 10
 
 
 def _read_csv(path: str | Path) -> pd.DataFrame:
+    """The CSV as text cells, lower-case column names. A file that is not UTF-8 is read as
+    Windows-1252 / Latin-1 with a console warning naming the byte position."""
+    from facies_ml.wells.build import emit_warnings
     from facies_ml.wells.table import read_frame
 
-    frame = read_frame(path)
+    warnings: list[str] = []
+    frame = read_frame(path, warnings=warnings)
+    emit_warnings(warnings)
     frame.columns = [c.strip().lower() for c in frame.columns]
     return frame
 
@@ -244,8 +249,71 @@ def align_core_labels(wells: list[Well], intervals: pd.DataFrame | str | Path,
             info = estimate_depth_shift(w, core_gamma, float(ds.get("max_shift", 6.0)),
                                         float(ds.get("min_correlation", 0.5)))
         w.intake["depth_shift"] = info
-        labels = intervals_to_labels(w, intervals, info["shift"] if info["applied"] else 0.0)
+        shift = info["shift"] if info["applied"] else 0.0
+        check_core_overlap(w, intervals, shift)
+        labels = intervals_to_labels(w, intervals, shift)
         if (labels["lithofacies"] < 0).all() and (labels["systems_tract"] < 0).all():
-            w.intake.setdefault("notes", []).append("no core interval overlaps the logged depths")
+            w.intake.setdefault("notes", []).append("no core interval labels a log sample")
         out[w.name] = labels
     return out
+
+
+def _interval_text(rec: Any) -> str:
+    row = getattr(rec, "row", None)
+    return f"{rec.top:g}-{rec.base:g}" + (f" (row {int(row)})" if row is not None else "")
+
+
+def check_core_overlap(well: Well, intervals: pd.DataFrame, shift: float = 0.0) -> None:
+    """Compare the core intervals of ``well`` with its logged depths (``shift`` in the working
+    unit added to core depth).
+
+    Intervals lying wholly outside the log are a warning naming the well, the count and the
+    first intervals (in ``well.intake["warnings"]`` and on the console). When none overlaps,
+    :class:`InputError`: a cored well that labels nothing must not pass as a training well.
+    If the core would overlap once the log depths were read in the other unit (a log in metres
+    labelled ft, or the reverse), the message says so with the labelled unit, the file step,
+    the log and core ranges, and the fix.
+    """
+    from facies_ml.wells.build import SHOWN, emit_warnings, where_text
+
+    mine = intervals[intervals["well"].astype(str) == well.name]
+    if mine.empty or len(well.depth) == 0:
+        return
+    u = well.original_depth_unit
+    f = depth_factor(u, well.depth_unit)
+    half = 0.5 * well.step
+    log_top, log_base = float(well.depth[0]) - half, float(well.depth[-1]) + half
+    tops = mine["top"].to_numpy(float) * f + shift
+    bases = mine["base"].to_numpy(float) * f + shift
+    outside = (bases <= log_top) | (tops >= log_base)
+    lo, hi = float(well.depth[0]) / f, float(well.depth[-1]) / f   # log range, original unit
+    core_lo, core_hi = float(mine["top"].min()), float(mine["base"].max())
+    if outside.all():
+        other = "m" if u == "ft" else "ft"
+        k = depth_factor(other, u)                         # log numbers read as ``other``
+        alt = (mine["base"].to_numpy(float) > lo * k) & (mine["top"].to_numpy(float) < hi * k)
+        label = well.intake.get("depth_unit_label") or u
+        step = well.intake.get("file_step")
+        step_text = f", file step {step:g}" if isinstance(step, int | float) else ""
+        base = (f"no core interval overlaps the log: core {core_lo:g}-{core_hi:g} {u} "
+                f"({len(mine)} interval(s)), log {lo:g}-{hi:g} {u} (depth labelled "
+                f"{label!r}{step_text})")
+        if alt.any():
+            name = "metres" if other == "m" else "feet"
+            raise InputError(f"{base}; the core would overlap if the log depths were {name}: "
+                             f"if they are, label the log's depth {other.upper()} (LAS ~Curve "
+                             f"depth and ~Well STRT/STOP/STEP; table: --depth-unit {other}) and "
+                             f"give this well's core depths in {other} (core depths are in the "
+                             "log file's depth unit)", file=well.source or None, well=well.name)
+        raise InputError(f"{base}; check the core file's well names and depths (core depths "
+                         "are in the log file's depth unit)", file=well.source or None,
+                         well=well.name)
+    if outside.any():
+        recs = list(mine[outside].itertuples(index=False))
+        shown = ", ".join(_interval_text(r) for r in recs[:SHOWN])
+        more = "" if len(recs) <= SHOWN else f" (+{len(recs) - SHOWN} more)"
+        msg = (f"{where_text(well.name, well.source)}: {len(recs)} of {len(mine)} core "
+               f"interval(s) lie outside the logged depths {lo:g}-{hi:g} {u} and label "
+               f"nothing: {shown}{more} {u}")
+        well.intake.setdefault("warnings", []).append(msg)
+        emit_warnings([msg])

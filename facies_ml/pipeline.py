@@ -33,6 +33,7 @@ from facies_ml.lithofacies import LithofaciesClassifier, SubsetModels
 from facies_ml.sequence import TractSequenceModel, load_rules
 from facies_ml.sequence.evidence import tract_evidence_matrix
 from facies_ml.sequence.surfaces import Surface, SurfaceChecks
+from facies_ml.settings import FeatureSettings
 from facies_ml.wells import GRNormalizer, Well
 
 UNLABELLED = -1
@@ -55,6 +56,32 @@ class WellPrediction:
 def _lgbm_params(config: Config) -> dict[str, Any]:
     """LithofaciesClassifier parameters from the checked settings (seed = project.seed)."""
     return {**dataclasses.asdict(config.settings.lithofacies), "random_state": config.seed}
+
+
+def _carried_features(well: Well, X: pd.DataFrame, wells: list[Well], settings: FeatureSettings,
+                      reference: dict) -> list[str]:
+    """Feature columns ``well`` counts as carrying: those with data in ``X``, plus those its
+    unusable curves (logged, but all null or constant) would give. The latter are named by
+    building features once on a copy whose unusable curves are filled, for naming only, with
+    another training well's values of that curve (repeated to length); nothing of it is
+    trained on."""
+    have = [str(c) for c in X.columns[X.notna().any().to_numpy()]]
+    bad = [r for r in (well.intake.get("unusable_curves") or {}) if r not in well.curves]
+    stand_in = well.curves.copy()
+    for role in bad:
+        donor = next((w.curves[role].to_numpy(dtype=float) for w in wells
+                      if w is not well and role in w.curves and w.curves[role].notna().any()),
+                     None)
+        if donor is not None:
+            stand_in[role] = np.resize(donor, len(stand_in))
+    if stand_in.shape[1] == well.curves.shape[1]:
+        return have
+    try:
+        named = build_features(stand_in, well.step, settings, reference)
+    except InputError:
+        return have
+    extra = [str(c) for c in named.columns[named.notna().any().to_numpy()] if c not in have]
+    return have + extra
 
 
 class FaciesPipeline:
@@ -96,11 +123,14 @@ class FaciesPipeline:
             y_tract.append(lab["systems_tract"].fillna(UNLABELLED).to_numpy(int))
             groups.append(np.full(len(X), w.name, dtype=object))
         # Drop features that only a minority of the training wells carry (e.g. spectral gamma
-        # in two of five wells): a model leaning on them would serve few offset wells.
+        # in two of five wells): a model leaning on them would serve few offset wells. A well
+        # whose curve was logged but unusable (all null or constant, ``unusable_curves`` in its
+        # intake) counts as carrying that curve's features: one bad log never removes a curve
+        # from the whole model; that well simply has missing values for them.
         coverage = settings.min_well_coverage
         counts: dict[str, int] = {}
-        for X in frames:
-            for col in X.columns[X.notna().any().to_numpy()]:
+        for w, X in zip(labelled, frames, strict=True):
+            for col in _carried_features(w, X, labelled, settings, self.feature_reference_):
                 counts[col] = counts.get(col, 0) + 1
         keep = [c for c in frames[0].columns.union(pd.Index(list(counts)), sort=False)
                 if counts.get(c, 0) >= coverage * len(frames)]

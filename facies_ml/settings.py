@@ -60,7 +60,7 @@ class FileSettings:
 class TableSettings:
     well_columns: tuple[str, ...]
     depth_columns: tuple[str, ...]
-    depth_unit: Literal["ft", "m"]
+    depth_unit: Literal["ft", "m"] | None     # None: a depth column without a unit is refused
     units: dict[str, str]
 
 
@@ -84,6 +84,7 @@ class IntakeSettings:
     despike_roles: tuple[str, ...]
     log_scale_roles: tuple[str, ...]
     bad_hole_roles: tuple[str, ...]
+    flat_curve_exempt_roles: tuple[str, ...]
     unknown_unit: Literal["error", "warn"]
     table: TableSettings
     gr_normalization: GRNormalizationSettings
@@ -93,6 +94,8 @@ class IntakeSettings:
     washout_caliper_excess_in: float = _positive()
     max_gap_interpolate: float = _limits(0)
     max_samples: int = _limits(1)
+    metre_like_steps: tuple[float, ...] = _positive()     # file steps, in the file's unit
+    flat_curve_min_samples: int = _limits(2)
 
 
 @dataclass(frozen=True)

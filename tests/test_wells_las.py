@@ -203,12 +203,16 @@ def test_preference_order_and_alternatives(tmp_path, cfg):
     assert well.curves["gr_api"].iloc[0] == 50
 
 
-def test_all_null_curve_dropped_with_note(tmp_path, cfg):
+def test_all_null_curve_dropped_with_warning(tmp_path, cfg, caplog):
     curves = [("DEPT", "F"), ("GR", "GAPI"), ("PEF", "B/E")]
     rows = [[1000 + 0.5 * i, 50 + i, -999.25] for i in range(9)]
-    well = read_well(write(tmp_path, "n.las", las_text(curves, rows)), cfg)
+    with caplog.at_level("WARNING", logger="facies_ml.wells"):
+        well = read_well(write(tmp_path, "n.las", las_text(curves, rows)), cfg)
     assert "pe_b_e" not in well.curves
-    assert any("pe_b_e dropped" in n for n in well.intake["notes"])
+    assert well.intake["unusable_curves"] == {"pe_b_e": {"mnemonic": "PEF", "reason": "all null"}}
+    (msg,) = well.intake["warnings"]
+    assert "'QM-K1'" in msg and "'PEF'" in msg and "no data" in msg
+    assert msg in caplog.text                                   # printed on the console too
 
 
 def test_gap_longer_than_max_gap_not_interpolated(tmp_path, cfg):

@@ -7,9 +7,11 @@ physical ranges, despiking, resampling to the regular working grid, caliper bad-
 
 from __future__ import annotations
 
+import logging
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -18,7 +20,7 @@ import pandas as pd
 from facies_ml.config import Config
 from facies_ml.errors import InputError
 from facies_ml.wells import clean
-from facies_ml.wells.model import ROLES, Well, depth_factor
+from facies_ml.wells.model import FT_PER_M, ROLES, Well, depth_factor
 from facies_ml.wells.roles import AliasTable, load_alias_table
 
 ROLE_UNITS = {
@@ -50,6 +52,46 @@ class RawWell:
     notes: list[str] = field(default_factory=list)
     depth_mnemonic: str = "DEPT"     # the index curve's name in the file
     depth_unit_text: str = ""        # the index unit as written in the file ("F", "M", ...)
+    warnings: list[str] = field(default_factory=list)   # found while reading the file
+
+
+log = logging.getLogger("facies_ml.wells")
+SHOWN = 3   # depths / rows / cell texts quoted in one warning
+
+
+def where_text(well: str, source: str = "", curve: str | None = None) -> str:
+    """``well 'QM-O5' (QM-O5.las), curve 'GR'`` -- the place a warning is about."""
+    out = f"well {well!r}" + (f" ({Path(source).name})" if source else "")
+    return out + (f", curve {curve!r}" if curve else "")
+
+
+def emit_warnings(messages: list[str]) -> None:
+    """Print intake warnings on the console (the ``facies_ml.wells`` logger, level WARNING;
+    without a configured handler Python's last-resort handler writes them to stderr)."""
+    for m in messages:
+        log.warning("warning: %s", m)
+
+
+def depths_text(depths: Any, unit: str) -> str:
+    """``1001, 1001.5, 1002 ft (+4 more, 1001-1010 ft)`` for a list of depths."""
+    d = np.asarray(depths, dtype=float)
+    d = d[np.isfinite(d)]
+    if d.size == 0:
+        return "(no usable depth)"
+    shown = ", ".join(f"{x:g}" for x in d[:SHOWN])
+    more = "" if d.size <= SHOWN else f" (+{d.size - SHOWN} more, {d.min():g}-{d.max():g} {unit})"
+    return f"{shown} {unit}{more}"
+
+
+def _cell_examples(values: Any, mask: np.ndarray) -> str:
+    seen: list[str] = []
+    for v in np.asarray(values, dtype=object)[mask]:
+        t = repr(str(v).strip()[:16])
+        if t not in seen:
+            seen.append(t)
+        if len(seen) == 2:
+            break
+    return ", ".join(seen)
 
 
 @lru_cache(maxsize=8)
@@ -103,22 +145,30 @@ def build_well(raw: RawWell, config: Config) -> Well:
     work_unit, step = config.working_unit, config.step
     nulls = list(s["null_values"]) + list(raw.null_values)
 
-    depth, bad = clean.to_numeric(raw.depth)
-    depth, n_null_depth = clean.replace_nulls(depth, nulls)
+    warnings = list(raw.warnings)
+    unit0 = raw.depth_unit
+    depth, depth_text = clean.parse_numbers(raw.depth)
+    depth, _ = clean.replace_nulls(depth, nulls)
     n = depth.size
     if n == 0:
         raise InputError("no data rows", **where)
     keep = np.isfinite(depth)
     if (~keep).sum():
         dropped["missing_depth_rows"] = int((~keep).sum())
-    if bad:
-        notes.append(f"{bad} depth cell(s) were not numbers")
+        lost = np.flatnonzero(~keep) + 1
+        kind = (f"{int(depth_text.sum())} not numbers, e.g. "
+                f"{_cell_examples(raw.depth, depth_text)}; " if depth_text.any() else "")
+        warnings.append(f"{where_text(raw.name, raw.source, raw.depth_mnemonic)}: "
+                        f"{lost.size} row(s) without a usable depth ({kind}blank, null or "
+                        f"infinite otherwise) dropped: data row(s) "
+                        f"{', '.join(str(r) for r in lost[:SHOWN])}"
+                        f"{'' if lost.size <= SHOWN else f' (+{lost.size - SHOWN} more)'}")
     dup = pd.Series(depth).duplicated(keep="first").to_numpy() & keep
     if dup.sum():
         dropped["duplicate_depth_rows"] = int(dup.sum())
-        first = float(depth[dup][0])
-        notes.append(f"{int(dup.sum())} duplicated depth row(s) dropped, first at {first:g} "
-                     f"{raw.depth_unit} (kept the first occurrence)")
+        warnings.append(f"{where_text(raw.name, raw.source, raw.depth_mnemonic)}: "
+                        f"{int(dup.sum())} row(s) repeat an earlier depth and were dropped "
+                        f"(kept the first occurrence), at {depths_text(depth[dup], unit0)}")
     keep &= ~dup
     if not keep.any():
         raise InputError("no usable depth samples", **where)
@@ -128,6 +178,16 @@ def build_well(raw: RawWell, config: Config) -> Well:
     if np.any(np.diff(d) < 0):
         notes.append("depth was not increasing downward; rows sorted by depth")
     rows, d = rows[order], d[order]
+    file_step = float(np.median(np.diff(d))) if d.size > 1 else None
+    if unit0 == "ft" and file_step is not None and any(
+            abs(file_step - float(m)) <= 0.005 * float(m)
+            for m in (s.get("metre_like_steps") or [])):
+        warnings.append(
+            f"{where_text(raw.name, raw.source, raw.depth_mnemonic)}: depth labelled "
+            f"{raw.depth_unit_text or 'ft'!r} (feet) but its step {file_step:g} is a metric "
+            f"step ({file_step * FT_PER_M:.3g} ft if the depths are metres), depths "
+            f"{d[0]:g}-{d[-1]:g}; if they are metres, fix the depth unit (LAS: ~Curve "
+            f"{raw.depth_mnemonic}.M and ~Well STRT/STOP/STEP .M; table: --depth-unit m)")
 
     # Every file curve is converted once: kept as read (the well's ``original``, file
     # mnemonics) and, when the alias table knows it, a candidate for its role. The role steps
@@ -141,13 +201,29 @@ def build_well(raw: RawWell, config: Config) -> Well:
     for i, c in enumerate(raw.curves):
         role = aliases.role_of(c.mnemonic)
         curves_found.append({"mnemonic": str(c.mnemonic), "unit": str(c.unit or ""), "role": role})
-        vals, bad = clean.to_numeric(c.values)
+        vals, text = clean.parse_numbers(c.values)
         if len(vals) != n:
             if role is None:
                 continue  # not a curve we use: left out of the original too
             raise InputError(f"curve has {len(vals)} values for {n} depth rows", curve=c.mnemonic,
                              **where)
+        bad = int(text.sum())
+        inf = np.isinf(vals)
+        if role is None and bad and bad == int((text | np.isfinite(vals)).sum()):
+            notes.append(f"column {c.mnemonic!r} holds text only; not a curve")
+            bad = 0
+        if bad or inf.any():
+            parts = []
+            if bad:
+                parts.append(f"{bad} cell(s) not numbers (e.g. {_cell_examples(c.values, text)})"
+                             f" at {depths_text(depth[text], unit0)}")
+            if inf.any():
+                parts.append(f"{int(inf.sum())} infinite value(s) at "
+                             f"{depths_text(depth[inf], unit0)}")
+            warnings.append(f"{where_text(raw.name, raw.source, str(c.mnemonic))}: "
+                            f"{'; '.join(parts)}; set to missing")
         vals, k = clean.replace_nulls(vals, nulls)
+        k -= int(inf.sum())
         vals = vals[rows]
         name = str(c.mnemonic)
         while name in original_cols or name == raw.depth_mnemonic:
@@ -170,6 +246,7 @@ def build_well(raw: RawWell, config: Config) -> Well:
                          + ", ".join(str(c.mnemonic) for c in raw.curves) + ")", **where)
 
     roles_info: dict[str, dict[str, Any]] = {}
+    unusable: dict[str, dict[str, str]] = {}
     values: dict[str, np.ndarray] = {}
     out_rng: dict[str, int] = {}
     despiked: dict[str, int] = {}
@@ -179,7 +256,10 @@ def build_well(raw: RawWell, config: Config) -> Well:
         cands = sorted(candidates[role], key=lambda t: (t[0], t[1]))
         usable = [t for t in cands if np.isfinite(t[3]).any()]
         if not usable:
-            notes.append(f"role {role} dropped: curve {cands[0][2].mnemonic} has no data (all null)")
+            mn = str(cands[0][2].mnemonic)
+            unusable[role] = {"mnemonic": mn, "reason": "all null"}
+            warnings.append(f"{where_text(raw.name, raw.source, mn)}: the {role} curve has no "
+                            "data (every value null or missing); the well is read without it")
             continue
         _, _, c, vals = usable[0]
         spec = aliases.roles[role]
@@ -193,15 +273,32 @@ def build_well(raw: RawWell, config: Config) -> Well:
             notes.append(f"{c.mnemonic}: {msg}; taken as {ROLE_UNITS[role]}")
             factor = 1.0
         vals = vals * factor
+        finite = vals[np.isfinite(vals)]
+        flat_min = s.get("flat_curve_min_samples")
+        if (flat_min is not None and role not in (s.get("flat_curve_exempt_roles") or [])
+                and finite.size >= int(flat_min) and float(np.ptp(finite)) == 0.0):
+            unusable[role] = {"mnemonic": str(c.mnemonic),
+                              "reason": f"constant {finite[0]:g} {ROLE_UNITS[role]}"}
+            warnings.append(f"{where_text(raw.name, raw.source, str(c.mnemonic))}: the {role} "
+                            f"curve is constant ({finite[0]:g} {ROLE_UNITS[role]} over "
+                            f"{finite.size} samples, {d[0]:g}-{d[-1]:g} {unit0}), not a log "
+                            "reading; the well is read without it")
+            continue
         med = float(np.nanmedian(vals))
         lo, hi = spec.median_range
         if not lo <= med <= hi:
             raise InputError(f"median {med:g} {ROLE_UNITS[role]} (after conversion from "
                              f"{unit or 'blank unit'}) is outside the plausible {lo:g} to {hi:g} "
                              f"for {role}: wrong units?", curve=c.mnemonic, **where)
-        vals, k = clean.out_of_range(vals, *spec.valid_range)
+        vlo, vhi = spec.valid_range
+        with np.errstate(invalid="ignore"):
+            outside = np.isfinite(vals) & ((vals < vlo) | (vals > vhi))
+        vals, k = clean.out_of_range(vals, vlo, vhi)
         if k:
             out_rng[role] = k
+            warnings.append(f"{where_text(raw.name, raw.source, str(c.mnemonic))}: {k} "
+                            f"value(s) outside the valid {vlo:g} to {vhi:g} {ROLE_UNITS[role]} "
+                            f"for {role} set to missing, at {depths_text(d[outside], unit0)}")
         if role in s["despike_roles"]:
             vals, k = clean.despike(vals, int(s["despike_window"]), float(s["despike_threshold"]),
                                     log_scale=role in s["log_scale_roles"])
@@ -267,7 +364,11 @@ def build_well(raw: RawWell, config: Config) -> Well:
 
     for role in list(curves.columns):
         if curves[role].isna().all():
-            notes.append(f"role {role} dropped: no data left after cleaning")
+            mn = str(roles_info.get(role, {}).get("mnemonic", role))
+            unusable[role] = {"mnemonic": mn, "reason": "no data left after cleaning"}
+            warnings.append(f"{where_text(raw.name, raw.source, mn)}: the {role} curve has no "
+                            "data left after cleaning (bad hole, spikes, gaps); the well is read "
+                            "without it")
             curves = curves.drop(columns=role)
             roles_info.pop(role, None)
     if curves.shape[1] == 0:
@@ -292,8 +393,13 @@ def build_well(raw: RawWell, config: Config) -> Well:
         "bad_hole_nulled": bad_hole_nulled,
         "despiked": despiked,
         "out_of_range": out_rng,
+        "file_step": _py(file_step),
+        "depth_unit_label": raw.depth_unit_text,
+        "unusable_curves": unusable,
         "notes": notes,
+        "warnings": warnings,
     }
+    emit_warnings(warnings)
     header = {k: _py(v) for k, v in raw.header.items()}
     return Well(name=raw.name, curves=curves, depth_unit=work_unit,
                 original_depth_unit=raw.depth_unit, step=step, source=raw.source, flags=flags,

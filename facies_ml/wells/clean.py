@@ -14,25 +14,42 @@ import pandas as pd
 MAD_TO_SIGMA = 1.4826  # MAD of a normal distribution times this is its standard deviation
 
 
-def to_numeric(values: Iterable[object]) -> tuple[np.ndarray, int]:
-    """Float array of ``values``; returns (array, number of non-blank cells that were not numbers)."""
+def parse_numbers(values: Iterable[object]) -> tuple[np.ndarray, np.ndarray]:
+    """Float array of ``values`` and a mask of the non-blank cells that were not numbers.
+
+    Text such as ``abc``, ``1,5``, ``NaN`` or a cell holding undecodable bytes becomes NaN and
+    is marked in the mask; blank cells become NaN unmarked (an ordinary missing value). ``inf``
+    text is read as infinity (see :func:`infinite_mask`).
+    """
     s = pd.Series(list(values) if not isinstance(values, pd.Series | np.ndarray) else values)
     if s.dtype.kind in "fiub":
-        return s.to_numpy(dtype=float), 0
+        return s.to_numpy(dtype=float), np.zeros(len(s), dtype=bool)
     as_text = s.astype("string").str.strip()
-    blank = s.isna() | (as_text == "") | as_text.isna()
+    blank = (s.isna() | (as_text == "") | as_text.isna()).to_numpy(dtype=bool)
     out = pd.to_numeric(as_text.where(~blank), errors="coerce").to_numpy(dtype=float)
-    bad = int((np.isnan(out) & ~blank.to_numpy(dtype=bool)).sum())
-    return out, bad
+    return out, np.isnan(out) & ~blank      # "NaN" text is marked too: not blank, no number
+
+
+def to_numeric(values: Iterable[object]) -> tuple[np.ndarray, int]:
+    """Float array of ``values``; returns (array, number of non-blank cells that were not numbers)."""
+    out, bad = parse_numbers(values)
+    return out, int(bad.sum())
+
+
+def null_mask(values: np.ndarray, nulls: Iterable[float]) -> np.ndarray:
+    """True where ``values`` equals one of the sentinel ``nulls`` (e.g. LAS NULL -999.25)."""
+    values = np.asarray(values, dtype=float)
+    mask = np.zeros(values.shape, dtype=bool)
+    for null in nulls:
+        null = float(null)
+        mask |= np.isclose(values, null, rtol=0.0, atol=1e-6 * max(1.0, abs(null)))
+    return mask
 
 
 def replace_nulls(values: np.ndarray, nulls: Iterable[float]) -> tuple[np.ndarray, int]:
     """Set sentinel null values (and +/-inf) to NaN; returns (copy, count of sentinels replaced)."""
     out = np.array(values, dtype=float, copy=True)
-    mask = np.isinf(out)
-    for null in nulls:
-        null = float(null)
-        mask |= np.isclose(out, null, rtol=0.0, atol=1e-6 * max(1.0, abs(null)))
+    mask = np.isinf(out) | null_mask(out, nulls)
     out[mask] = np.nan
     return out, int(mask.sum())
 

@@ -56,7 +56,10 @@ def read_wells(path: str | Path, config: Config,
     ``problems`` as ``{"file", "well", "reason"}``; with ``"raise"`` the first error propagates.
     Tables that are not well logs (no depth column, or no curve known to the alias table,
     e.g. ``core_intervals.csv``) are never read as wells and are not failures: each is noted
-    on the ``facies_ml.wells`` logger. A well name seen twice is an error for the second file.
+    on the ``facies_ml.wells`` logger; if no file at all is a well file, that is an error
+    naming the skipped files. A well name seen twice is an error naming both files
+    (with ``"collect"``: a failure of the second file's well, with ``"duplicate_of"`` naming
+    the first file; the other wells of that file are still read).
     """
     if on_error not in ("raise", "collect"):
         raise InputError(f"on_error must be 'raise' or 'collect', not {on_error!r}")
@@ -74,6 +77,7 @@ def read_wells(path: str | Path, config: Config,
     failures: list[dict[str, Any]] | None = [] if on_error == "collect" else None
     wells: list[Well] = []
     seen: dict[str, str] = {}
+    skipped: list[str] = []
     for f in files:
         try:
             if f.suffix.lower() == ".las":
@@ -82,18 +86,30 @@ def read_wells(path: str | Path, config: Config,
                 ok, why = table_kind(f, config)
                 if not ok:
                     log.info("skipped %s: not a well table (%s)", f, why)
+                    skipped.append(f"{f.name} ({why})")
                     continue
                 got = _table_wells(f, config, None, None, None, failures)
-            for w in got:
-                if w.name in seen:
-                    raise InputError(f"well name also used by {seen[w.name]}", file=str(f),
-                                     well=w.name)
-                seen[w.name] = str(f)
-                wells.append(w)
         except InputError as err:
             if failures is None:
                 raise
             failures.append({"file": str(f), "well": err.well, "reason": str(err)})
+            continue
+        for w in got:   # each well on its own: a repeated name never hides the file's others
+            if w.name in seen:
+                err = InputError(f"well name used by both {Path(seen[w.name]).name} and "
+                                 f"{f.name}; rename one (~Well WELL or the well column)",
+                                 file=str(f), well=w.name)
+                if failures is None:
+                    raise err
+                failures.append({"file": str(f), "well": w.name, "reason": str(err),
+                                 "duplicate_of": seen[w.name]})
+                continue
+            seen[w.name] = str(f)
+            wells.append(w)
+    if not wells and not failures and skipped:
+        raise InputError("no well file: " + "; ".join(skipped[:3])
+                         + (f" and {len(skipped) - 3} more" if len(skipped) > 3 else ""),
+                         file=str(path))
     return wells, failures or []
 
 
@@ -124,4 +140,6 @@ def intake_summary(well: Well) -> str:
         parts.append(f"core shift {ds['shift']:+g}{' applied' if ds['applied'] else ' not applied'}")
     if i.get("notes"):
         parts.append(f"{len(i['notes'])} note(s)")
+    if i.get("warnings"):
+        parts.append(f"{len(i['warnings'])} warning(s)")
     return "; ".join(parts)

@@ -11,7 +11,7 @@ import numpy as np
 from facies_ml.config import Config
 from facies_ml.errors import InputError
 from facies_ml.wells import clean
-from facies_ml.wells.build import RawCurve, RawWell, alias_table
+from facies_ml.wells.build import RawCurve, RawWell, alias_table, where_text
 
 
 def one_line(exc: BaseException) -> str:
@@ -33,20 +33,48 @@ def _value(section: Any, key: str) -> Any:
     return None if item is None else item.value
 
 
-def _decode(raw: bytes) -> str | None:
-    for encoding in ("utf-8", "latin-1"):
-        try:
-            return raw.decode(encoding)
-        except UnicodeDecodeError:
+def _decode(raw: bytes) -> tuple[str, int | None]:
+    """Header text as UTF-8, else Latin-1 (which decodes any byte); the position of the first
+    byte that is not UTF-8 (``None`` when the text is UTF-8)."""
+    try:
+        return raw.decode("utf-8"), None
+    except UnicodeDecodeError as exc:
+        return raw.decode("latin-1"), int(exc.start)
+
+
+def _rows(body: bytes, first_line: int, n_curves: int, src: str) -> np.ndarray:
+    """The ``~A`` block (WRAP NO) as an object array of cell texts, one row per data line.
+
+    A line with more or fewer values than there are curves raises :class:`InputError` naming
+    the file line and the depth in its first value. Undecodable bytes stay in the cell text
+    (shown as U+FFFD), so that cell is reported as not a number with its depth.
+    """
+    rows: list[list[str]] = []
+    for k, line in enumerate(body.split(b"\n")):
+        text = line.split(b"#", 1)[0].strip()
+        if not text:
             continue
-    return None
+        cells = text.decode("utf-8", errors="replace").split()
+        if len(cells) != n_curves:
+            try:
+                depth: float | None = float(cells[0])
+            except ValueError:
+                depth = None
+            where = f"depth {depth:g}" if depth is not None else f"first value {cells[0]!r}"
+            raise InputError(f"line {first_line + k} (~A data, {where}) has {len(cells)} values "
+                             f"for {n_curves} curves (a missing or extra value)", file=src)
+        rows.append(cells)
+    return np.array(rows, dtype=object).reshape(len(rows), n_curves)
 
 
-def _read_fast(src: str) -> Any:
-    """Header by lasio, data block by numpy, for the common case (LAS 2.0, WRAP NO, space
-    delimited, every cell numeric). The file is read once; lasio parses only the text above
-    the ``~A`` line. Returns ``None`` whenever that case does not hold, so the caller falls
-    back to lasio's full reader (which also produces its error messages)."""
+def _read_fast(src: str) -> tuple[Any, list[Any], list[str]] | None:
+    """Header by lasio, data block by numpy, for the common case (LAS 1.2/2.0, WRAP NO, space
+    delimited). The file is read once; lasio parses only the text above the ``~A`` line.
+    Returns (header-only lasio object, one value array per curve, warnings), or ``None``
+    whenever that case does not hold, so the caller falls back to lasio's full reader (which
+    also produces its error messages). Data lines with a missing or extra value raise
+    :class:`InputError` naming the line; cells that are not numbers are kept as text for the
+    conditioning step to report with their depth."""
     import io
     import re
 
@@ -57,9 +85,7 @@ def _read_fast(src: str) -> Any:
     match = re.search(rb"^[ \t]*~A[^\n]*\n", raw, flags=re.MULTILINE)
     if match is None or re.search(rb"^[ \t]*~", raw[match.end():], flags=re.MULTILINE):
         return None
-    header = _decode(raw[:match.start()])
-    if header is None:
-        return None
+    header, bad_at = _decode(raw[:match.start()])
     try:
         las = lasio.read(io.StringIO(header), ignore_data=True, null_policy="none",
                          ignore_header_errors=False)
@@ -68,19 +94,27 @@ def _read_fast(src: str) -> Any:
     version = str(_value(las.version, "VERS") or "").strip()
     wrap = str(_value(las.version, "WRAP") or "").strip().upper()
     dlm = str(_value(las.version, "DLM") or "SPACE").strip().upper()
-    if not version.startswith("2") or wrap != "NO" or dlm not in ("", "SPACE") or not las.curves:
+    if (not version.startswith(("1", "2")) or wrap != "NO" or dlm not in ("", "SPACE")
+            or not las.curves):
         return None
+    warnings = []
+    if bad_at is not None:
+        warnings.append(f"file {Path(src).name}: header is not UTF-8 (first bad byte at "
+                        f"position {bad_at}); read as Latin-1")
     body = raw[match.end():]
     if not body.strip():
         return None
+    n = len(las.curves)
     try:
-        data = np.loadtxt(io.BytesIO(body), dtype=float, comments="#", ndmin=2)
+        data: Any = np.loadtxt(io.BytesIO(body), dtype=float, comments="#", ndmin=2)
     except ValueError:
+        data = None
+    if data is None or data.shape[1] != n or np.isnan(data).any():   # NaN: "nan" text cells
+        first_line = raw[:match.end()].count(b"\n") + 1
+        data = _rows(body, first_line, n, src)
+    if data.shape[0] == 0:
         return None
-    if data.shape[0] == 0 or data.shape[1] != len(las.curves):
-        return None
-    las.set_data(data, truncate=False)
-    return las
+    return las, [data[:, j] for j in range(n)], warnings
 
 
 def read_las_raw(path: str | Path, config: Config) -> RawWell:
@@ -100,9 +134,15 @@ def read_las_raw(path: str | Path, config: Config) -> RawWell:
     level = lasio_log.level
     lasio_log.setLevel(logging.ERROR)  # its per-curve warnings are summarised in our intake
     try:
-        las = _read_fast(src)
-        if las is None:
+        fast = _read_fast(src)
+        if fast is None:
             las = lasio.read(src, null_policy="none", ignore_header_errors=False, engine="normal")
+            columns = [c.data for c in las.curves]
+            read_warnings: list[str] = []
+        else:
+            las, columns, read_warnings = fast
+    except InputError:
+        raise
     except Exception as exc:  # lasio raises many types on garbled text; report one line
         raise InputError(f"cannot read as LAS ({one_line(exc)})", file=src) from None
     finally:
@@ -122,8 +162,9 @@ def read_las_raw(path: str | Path, config: Config) -> RawWell:
                          f"(expected one of {', '.join(aliases.depth_mnemonics)})", **where)
     if len(las.curves) < 2:
         raise InputError("no log curves besides the depth index", **where)
+    depth_values = columns[0]
     try:
-        n_rows = len(index.data)
+        n_rows = len(depth_values)
     except TypeError:
         n_rows = 0
     if n_rows == 0:
@@ -162,19 +203,19 @@ def read_las_raw(path: str | Path, config: Config) -> RawWell:
         if v not in (None, ""):
             header[key] = str(v)
     header["depth_unit"] = unit
-    notes += _header_checks(header, index.data, unit)
+    notes += _header_checks(header, depth_values, unit)
 
     curves = []
-    for c in las.curves[1:]:
-        data = c.data
+    for c, data in zip(las.curves[1:], columns[1:], strict=True):
         if data is None or len(data) != n_rows:
             raise InputError("curve length differs from the depth index", curve=c.mnemonic,
                              **where)
         curves.append(RawCurve(mnemonic=str(c.mnemonic), unit=str(c.unit or "").strip(),
                                values=data, descr=str(c.descr or "").strip()))
-    return RawWell(name=name, source=src, depth=index.data, depth_unit=unit, curves=curves,
+    return RawWell(name=name, source=src, depth=depth_values, depth_unit=unit, curves=curves,
                    null_values=nulls, header=header, notes=notes,
-                   depth_mnemonic=str(index.mnemonic), depth_unit_text=idx_unit or strt_unit)
+                   depth_mnemonic=str(index.mnemonic), depth_unit_text=idx_unit or strt_unit,
+                   warnings=[f"{where_text(name, src)}: {w}" for w in read_warnings])
 
 
 def _header_checks(header: dict[str, Any], depth: Any, unit: str) -> list[str]:
