@@ -39,7 +39,7 @@ from typing import Any
 import lightgbm as lgb
 import numpy as np
 import pandas as pd
-from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.base import BaseEstimator, RegressorMixin, clone
 from sklearn.linear_model import Ridge
 
 from facies_ml.core import _blank, _number, _read_csv
@@ -660,7 +660,40 @@ class PlugRegressor(BaseEstimator, RegressorMixin):
                           "band_coverage": float(inside.mean()),
                           "band_quantiles": list(q)}
         self.params_, self.booster_ = self._fit_one(best, X, y)
+        # kept for reduced models of wells that lack a log (:meth:`without`)
+        self.train_X_ = X.to_numpy(float)
+        self.train_y_ = y
+        self.train_groups_ = [str(v) for v in groups]
         return self
+
+    def inputs(self) -> list[str]:
+        """The features the chosen model reads."""
+        self._check_fitted()
+        fixed = {"passey_density": ["log10_rt", "rhob_g_cc"],
+                 "passey_sonic": ["log10_rt", "dtc_us_ft"], "schmoker_density": ["rhob_g_cc"]}
+        return list(fixed.get(self.selected_) or self.params_["features"])
+
+    def missing_inputs(self, X: pd.DataFrame) -> list[str]:
+        """Inputs of the chosen model that ``X`` lacks entirely (absent or all NaN), e.g. a
+        well logged without PE."""
+        return [f for f in self.inputs()
+                if f not in X or not np.isfinite(X[f].to_numpy(float)).any()]
+
+    def without(self, drop: Sequence[str]) -> PlugRegressor:
+        """The same regressor refitted on the training plugs without the features ``drop``
+        (candidates chosen and scored again on held-out wells), cached per feature set. A well
+        lacking a log gets this instead of a model filling the log's place with NaN."""
+        self._check_fitted()
+        key = ",".join(sorted(set(drop)))
+        cache: dict[str, PlugRegressor] = self.__dict__.setdefault("reduced_", {})
+        if key not in cache:
+            cols = [c for c in self.feature_names_in_ if c not in set(drop)]
+            if not cols:
+                raise InputError(f"{self.target}: no feature left without {key}")
+            X = pd.DataFrame(np.asarray(self.train_X_, float), columns=self.feature_names_in_)
+            cache[key] = clone(self).fit(X[cols], np.asarray(self.train_y_, float),
+                                         np.asarray(self.train_groups_))
+        return cache[key]
 
     def _band(self, mean: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         b = np.searchsorted(self.band_edges_, np.where(np.isfinite(mean), mean, 0.0),
@@ -672,17 +705,33 @@ class PlugRegressor(BaseEstimator, RegressorMixin):
             raise InputError(f"{self.target} model is not fitted")
 
     def predict(self, X: pd.DataFrame) -> np.ndarray:
-        """Mean prediction (n_samples,) in wt %; NaN where the chosen model's logs are
-        missing. Values are not clipped (a negative TOC shows a model outside its range)."""
+        """Mean prediction (n_samples,) in wt %, from :meth:`without` the missing logs when
+        ``X`` lacks an input entirely; NaN where the logs are missing in places. Values are not
+        clipped (a negative TOC shows a model outside its range)."""
+        return self._serving(X)._predict_raw(X)
+
+    def _predict_raw(self, X: pd.DataFrame) -> np.ndarray:
         self._check_fitted()
         return np.asarray(self._predict_one(self.selected_, self.params_, self.booster_, X),
                           dtype=float)
 
+    def _serving(self, X: pd.DataFrame) -> PlugRegressor:
+        missing = self.missing_inputs(X)
+        return self.without(missing) if missing else self
+
+    def model_name(self, X: pd.DataFrame) -> str:
+        """What serves ``X``: the chosen candidate, and the logs left out if any."""
+        missing = self.missing_inputs(X)
+        if not missing:
+            return self.selected_
+        return f"{self.without(missing).selected_} without {', '.join(sorted(missing))}"
+
     def predict_band(self, X: pd.DataFrame) -> pd.DataFrame:
         """``<target>`` (mean), ``<target>_p10`` and ``<target>_p90`` (the ``band_quantiles``;
         named p10/p90 for the defaults) per sample, on ``X``'s index."""
-        mean = self.predict(X)
-        lo, hi = self._band(mean)
+        model = self._serving(X)
+        mean = model._predict_raw(X)
+        lo, hi = model._band(mean)
         ql, qh = (round(100 * float(v)) for v in self.band_quantiles)
         return pd.DataFrame({self.target: mean, f"{self.target}_p{ql}": lo,
                              f"{self.target}_p{qh}": hi}, index=X.index)
@@ -695,7 +744,7 @@ class PlugRegressor(BaseEstimator, RegressorMixin):
 
         def plain(v: Any) -> Any:
             if isinstance(v, np.ndarray):
-                return v.tolist()
+                return [plain(x) for x in v.tolist()]
             if isinstance(v, dict):
                 return {str(k): plain(x) for k, x in v.items()}
             if isinstance(v, (list, tuple)):
@@ -712,7 +761,9 @@ class PlugRegressor(BaseEstimator, RegressorMixin):
                 "feature_names_in": list(self.feature_names_in_),
                 "band_edges": plain(self.band_edges_), "band_low": plain(self.band_low_),
                 "band_high": plain(self.band_high_), "scores": plain(self.scores_),
-                "skipped": dict(self.skipped_), "held_out": plain(self.held_out_)}
+                "skipped": dict(self.skipped_), "held_out": plain(self.held_out_),
+                "train_X": plain(np.where(np.isfinite(self.train_X_), self.train_X_, np.nan)),
+                "train_y": plain(self.train_y_), "train_groups": list(self.train_groups_)}
 
     @classmethod
     def from_state(cls, state: dict[str, Any]) -> PlugRegressor:
@@ -738,6 +789,10 @@ class PlugRegressor(BaseEstimator, RegressorMixin):
         obj.scores_ = state["scores"]
         obj.skipped_ = dict(state["skipped"])
         obj.held_out_ = state["held_out"]
+        obj.train_X_ = np.asarray(state["train_X"], dtype=float).reshape(
+            -1, len(obj.feature_names_in_))
+        obj.train_y_ = np.asarray(state["train_y"], dtype=float)
+        obj.train_groups_ = [str(v) for v in state["train_groups"]]
         return obj
 
 

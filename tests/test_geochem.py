@@ -374,3 +374,25 @@ def test_geochem_settings_are_checked() -> None:
     raw["geochem"]["toc_candidates"] = ["passey_density", "crystal_ball"]
     with pytest.raises(InputError, match=r"geochem.toc_candidates\[1\]"):
         check_settings(raw)
+
+
+def test_a_well_without_a_log_gets_a_model_refitted_without_it() -> None:
+    """PE drives carbonate here; a well logged without PE must not be served by a model that
+    reads its PE as missing everywhere, but by one refitted (and scored) without PE."""
+    rng = np.random.default_rng(11)
+    n = 300
+    X = pd.DataFrame({"pe_b_e": rng.uniform(2, 5, n), "rhob_g_cc": rng.uniform(2.3, 2.7, n)})
+    X["rhob_g_cc"] += 0.02 * (X["pe_b_e"] - 3.5)                 # density carries a little PE
+    y = 10 + 20 * (X["pe_b_e"].to_numpy() - 2) + rng.normal(0, 1, n)
+    m = _model(target="carbonate_wt_pct", candidates=("linear", "lightgbm")).fit(
+        X, y, np.repeat(["A", "B", "C"], n // 3))
+    no_pe = X.assign(pe_b_e=np.nan)
+    assert m.missing_inputs(no_pe) == ["pe_b_e"]
+    assert m.model_name(no_pe).endswith("without pe_b_e") and m.model_name(X) == m.selected_
+    reduced = m.without(["pe_b_e"])
+    assert reduced.feature_names_in_ == ["rhob_g_cc"] and m.without(["pe_b_e"]) is reduced
+    band = m.predict_band(no_pe)
+    assert np.allclose(band["carbonate_wt_pct"], reduced.predict(no_pe))
+    assert reduced.held_out_["r2"] < m.held_out_["r2"]          # honest, poorer scores
+    back = PlugRegressor.from_state(json.loads(json.dumps(m.to_state(), allow_nan=False)))
+    assert np.allclose(back.predict(no_pe), m.predict(no_pe))
