@@ -176,8 +176,10 @@ def plugs_on_well(well: Well, plugs: pd.DataFrame, shift: float = 0.0,
     log_depth = core * f + float(shift)
     idx = nearest_samples(well.depth, log_depth, float(max_steps) * well.step)
     ok = idx >= 0
+    rows = (mine["row"].to_numpy(int) if "row" in mine
+            else np.flatnonzero(plugs["well"].astype(str) == well.name) + 1)
     placed = pd.DataFrame({
-        "well": well.name, "row": mine["row"].to_numpy(int)[ok], "core_depth": core[ok],
+        "well": well.name, "row": rows[ok], "core_depth": core[ok],
         "log_depth": log_depth[ok], "sample": idx[ok],
         "sample_depth": well.depth[idx[ok]] if ok.any() else np.empty(0)})
     for c in values:
@@ -444,7 +446,8 @@ class PlugRegressor(BaseEstimator, RegressorMixin):
     median_abs_error, bias, n), ``held_out_`` (the chosen candidate's pooled scores and the
     share of held-out plugs inside the band; the band is built from those same residuals, so
     this share is near the nominal 80 % by construction: measure new wells for the real
-    figure), ``band_edges_`` / ``band_low_`` / ``band_high_`` (bins and residual quantiles).
+    figure; the chosen candidate won on these same held-out plugs, so its scores lean slightly
+    optimistic), ``band_edges_`` / ``band_low_`` / ``band_high_`` (bins and residual quantiles).
     """
 
     def __init__(self, target: str = TOC_COLUMN,
