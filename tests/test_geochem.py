@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import copy
 import json
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -356,7 +357,7 @@ def test_fit_plug_models_and_predict_geochem_with_minerals() -> None:
                           "carbonate_wt_pct": carb, "clay_wt_pct": clay,
                           "quartz_wt_pct": 100 - carb - clay})
     plugs.loc[::7, "toc_wt_pct"] = np.nan                               # XRD-only plugs
-    s = SETTINGS
+    s = replace(SETTINGS, lightgbm=replace(SETTINGS.lightgbm, n_estimators=20, n_jobs=1))
     models = fit_plug_models(X, plugs, s, seed=0)
     assert set(models) == {"toc_wt_pct", "carbonate_wt_pct", "clay_wt_pct", "quartz_wt_pct"}
     assert models["carbonate_wt_pct"].scores_["linear"]["r2"] > 0.95
