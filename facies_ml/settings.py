@@ -245,6 +245,57 @@ class LandingSettings:
     window_length: float = _positive()
 
 
+GeochemModel = Literal["passey_density", "passey_sonic", "schmoker_density", "linear",
+                       "lightgbm"]
+
+
+@dataclass(frozen=True)
+class GeochemBoostSettings:
+    """LightGBM regression candidate of :class:`facies_ml.geochem.PlugRegressor`."""
+
+    n_estimators: int = _limits(1)
+    learning_rate: float = _limits(0, 1, low_open=True)
+    num_leaves: int = _limits(2)
+    min_child_samples: int = _limits(1)
+    subsample: float = _limits(0, 1, low_open=True)
+    colsample_bytree: float = _limits(0, 1, low_open=True)
+    reg_lambda: float = _limits(0)
+    max_bin: int = _limits(2)
+    n_jobs: int = _limits(1)
+
+
+@dataclass(frozen=True)
+class GeochemSettings:
+    """Core-plug geochemistry, TOC and mineral models (see :mod:`facies_ml.geochem`)."""
+
+    toc_candidates: tuple[GeochemModel, ...]
+    mineral_candidates: tuple[Literal["linear", "lightgbm"], ...]
+    selection_metric: Literal["r2", "median_abs_error"]
+    brittleness: Literal["jarvie_2007", "wang_gale_2009"]
+    lightgbm: GeochemBoostSettings
+    passey_lom: float = _limits(0, 20)
+    baseline_clay_fraction: float = _limits(0, 1, low_open=True)
+    baseline_lean_fraction: float = _limits(0, 1, low_open=True)
+    baseline_min_samples: int = _limits(3)
+    band_quantiles: tuple[float, ...] = _limits(0, 1, low_open=True, high_open=True)
+    band_bins: int = _limits(1)
+    plug_match_steps: float = _positive()
+    toc_max_wt_pct: float = _limits(0, 100, low_open=True)
+    mineral_max_wt_pct: float = _limits(0, 100, low_open=True)
+    mineral_sum_tolerance_wt_pct: float = _limits(0)
+    linear_alpha: float = _limits(0)
+
+    def __post_init__(self) -> None:
+        q = self.band_quantiles
+        if len(q) != 2 or not q[0] < q[1]:
+            raise InputError("geochem.band_quantiles: give two quantiles, low below high "
+                             f"(got {list(q)})")
+        if not self.toc_candidates:
+            raise InputError("geochem.toc_candidates: give at least one model")
+        if not self.mineral_candidates:
+            raise InputError("geochem.mineral_candidates: give at least one model")
+
+
 @dataclass(frozen=True)
 class Settings:
     """Every project setting, one frozen object per ``configs/default.yaml`` section."""
@@ -260,6 +311,7 @@ class Settings:
     evaluation: EvaluationSettings
     report: ReportSettings
     landing: LandingSettings
+    geochem: GeochemSettings
 
 
 # ------------------------------------------------------------------------------- checking

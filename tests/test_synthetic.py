@@ -600,3 +600,69 @@ def test_hard_preset_with_an_eroded_sequence_below_a_log_window_cut(tmp_path: Pa
     assert set(surf["well"]) == set(s.wells)
     meta = json.loads((tmp_path / "h9" / "basin.json").read_text())
     assert sum(bool(w["eroded_sequences"]) for w in meta["wells"]) == 2
+
+
+# ---------------------------------------------------------------- core-plug geochemistry
+
+
+def test_core_plugs_lie_in_recovered_core_and_measure_the_truth(basin: dict,
+                                                                 truth: dict) -> None:
+    """core_geochem.csv: plugs only inside the cored intervals (core depth, none in lost core),
+    XRD closed to 100 wt % of the crystalline fraction (common practice), values equal to the
+    true composition at log depth = core depth + shift within the configured lab noise."""
+    from facies_ml.config import load_config
+    from facies_ml.geochem import read_geochem
+    from facies_ml.synthetic import GEOCHEM_COLUMNS
+
+    plugs = pd.read_csv(BUNDLED / "core_geochem.csv")
+    assert list(plugs.columns) == GEOCHEM_COLUMNS
+    wells = {w["name"]: w for w in basin["wells"]}
+    cored = sorted(n for n, w in wells.items() if w["role"] == "cored")
+    assert sorted(plugs["well"].unique()) == cored
+    core = pd.read_csv(BUNDLED / "core_intervals.csv")
+    dens = CFG["petrophysics"]["density_g_cc"]
+    noise = CFG["core"]["plugs"]
+    for name in cored:
+        w, t, p = wells[name], truth[name], plugs[plugs["well"] == name]
+        c = core[core["well"] == name]
+        d = p["depth"].to_numpy()
+        inside = ((d[:, None] >= c["top"].to_numpy()) & (d[:, None] < c["base"].to_numpy()))
+        assert inside.any(axis=1).all(), name
+        if w["lost_core"]:
+            top, base = w["lost_core"]
+            assert not ((d > top) & (d < base)).any()
+        spacing = np.median(np.diff(d))
+        assert 0.8 * noise["spacing_ft"] <= spacing <= 1.2 * noise["spacing_ft"]
+        i = np.clip(np.searchsorted(t["depth"].to_numpy(), d + w["core_shift"] - w["step"] / 2),
+                    0, len(t) - 1)
+        assert np.all(np.abs(t["depth"].to_numpy()[i] - (d + w["core_shift"])) <= w["step"] / 2)
+        err = p["toc_wt_pct"].to_numpy() - t["toc_wt_pct"].to_numpy()[i]
+        sigma = noise["toc_noise_abs_wt_pct"] + noise["toc_noise_rel"] * t["toc_wt_pct"].to_numpy()[i]
+        assert 0.8 < np.std(err / sigma) < 1.2 and abs(np.mean(err)) < 0.05
+        mass = {m: t[f"v{m}_v_v"].to_numpy()[i] * dens[m] for m in ("quartz", "calcite", "clay")}
+        quartz = 100 * mass["quartz"] / sum(mass.values())
+        assert np.median(np.abs(p["quartz_wt_pct"].to_numpy() - quartz)) < 1.5 * \
+            noise["xrd_noise_wt_pct"]
+    total = plugs[["quartz_wt_pct", "carbonate_wt_pct", "clay_wt_pct"]].sum(axis=1)
+    assert np.allclose(total, 100.0, atol=0.2)
+    assert (plugs["toc_wt_pct"] >= 0).all()
+    assert len(read_geochem(BUNDLED / "core_geochem.csv", load_config().settings.geochem,
+                            known_wells=list(wells))) == len(plugs)
+
+
+def test_core_plugs_use_their_own_random_stream(tmp_path: Path) -> None:
+    """Changing the plug settings changes core_geochem.csv (and the README line) only."""
+    cfg = yaml.safe_load(DEFAULT_SYNTH_CONFIG.read_text())
+    cfg["facies_scheme"] = str(DEFAULT_SYNTH_CONFIG.parent / cfg["facies_scheme"])
+    cfg["core"]["plugs"]["spacing_ft"] = 3.0
+    cfg["core"]["plugs"]["xrd_noise_wt_pct"] = 4.0
+    other = tmp_path / "plugs.yaml"
+    other.write_text(yaml.safe_dump(cfg))
+    generate_basin(tmp_path / "a", n_wells=3, n_cored=2, seed=5, samples_per_well=400)
+    generate_basin(tmp_path / "b", n_wells=3, n_cored=2, seed=5, samples_per_well=400,
+                   config_path=other)
+    files = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*")
+                   if p.is_file())
+    changed = [str(f) for f in files
+               if (tmp_path / "a" / f).read_bytes() != (tmp_path / "b" / f).read_bytes()]
+    assert changed == ["README.md", "core_geochem.csv"]

@@ -20,7 +20,7 @@ from facies_ml.config import CONFIG_DIR, load_facies_scheme, read_yaml
 from facies_ml.errors import InputError
 from facies_ml.synthetic import stratigraphy as strat
 from facies_ml.synthetic import tools
-from facies_ml.synthetic.petrophysics import rock_logs
+from facies_ml.synthetic.petrophysics import mineral_weight_percent, rock_logs
 from facies_ml.synthetic.writers import write_csv, write_json, write_las
 
 DEFAULT_SYNTH_CONFIG = CONFIG_DIR / "synthetic_basin.yaml"
@@ -34,7 +34,10 @@ __all__ = ["BasinSummary", "DEFAULT_SEED", "DEFAULT_SYNTH_CONFIG", "PRESETS", "g
 
 # keys a synth YAML must carry beyond the sections (section, key)
 _REQUIRED_KEYS = [("thickness", "erosion"), ("composition", "hot_stringers"),
-                  ("logging", "gr_drift"), ("wells", "log_window")]
+                  ("logging", "gr_drift"), ("wells", "log_window"), ("core", "plugs")]
+#: Columns of core_geochem.csv (depth = core depth in the well's unit).
+GEOCHEM_COLUMNS = ["well", "depth", "toc_wt_pct", "quartz_wt_pct", "carbonate_wt_pct",
+                   "clay_wt_pct"]
 
 
 @dataclass
@@ -362,6 +365,7 @@ below the next SB (no MFS for it); thin hot-shale stringers (uranium) in highsta
 slow GR calibration drift along the hole. basin.json records, per well, `logged_sequences`,
 `log_window_cut_sequences`, `eroded_sequences`, `gr_drift_api` and `hot_stringers`.
 """
+    plug_ft = float(cfg["core"]["plugs"]["spacing_ft"])
     return f"""# Synthetic demo basin: {cfg['basin']}, {cfg['formation']}
 
 CAUTION: this is INVENTED demo data made by a forward model (facies_ml.synthetic, generator
@@ -385,6 +389,12 @@ Files (depth increases downward; sequences are numbered from the deepest = 1):
   truth). `sequence` is the geologist's basin-wide sequence name `S<k>` (k = the truth
   `sequence` number, 1 = deepest); intervals split where lithofacies, tract or sequence change.
 - `core_gamma.csv`: `well,depth,core_gr_api`, gamma measured on the core, in core depth.
+- `core_geochem.csv`: `well,depth,toc_wt_pct,quartz_wt_pct,carbonate_wt_pct,clay_wt_pct`,
+  core-plug geochemistry of the cored wells in CORE depth (same shift as the core intervals),
+  about one plug every {plug_ft:g} ft of recovered core: TOC in wt % of the bulk rock
+  (combustion, lab noise added; a noisy value below 0 is reported as 0.00), quartz,
+  carbonate (calcite) and clay in wt % of the crystalline fraction (XRD, noise added, closed
+  to 100; kerogen and pore fluid excluded).
 - `truth/<WELL>.csv`: the true model at every LAS sample (log depth), noise-free values.
 - `truth/surfaces.csv`: `well,surface,depth,sequence,depth_unit` (SB = base of the sequence,
   MFS; depth in the well's own unit, `depth_unit` ft or m). Only surfaces strictly inside the
@@ -428,6 +438,7 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
     dec = int(cfg["logging"]["rounding"])
     files: list[Path] = []
     surfaces, core_rows, gamma_rows, meta = [], [], [], []
+    plug_rows: list[dict[str, Any]] = []
     cored_no = 0
     for idx, (w, ss) in enumerate(zip(plan, segs, strict=True)):
         n_full = int(round(totals[idx] * scale / step_ft))
@@ -502,7 +513,7 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
         if w["role"] == "cored":
             cored_no += 1
             core_meta = _core(w, cored_no, depth, step, f, sim, cfg, seed, idx, core_rows,
-                              gamma_rows)
+                              gamma_rows, plug_rows)
         meta.append(_well_meta(w, depth, step, n, sim, core_meta, dec))
         if extras:
             meta[-1].update(_extra_meta(sim, depth, step, erosion.get(idx), dec))
@@ -514,6 +525,7 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
                                                "systems_tract", "sequence"]), dec)
     write_csv(out / "core_gamma.csv",
               pd.DataFrame(gamma_rows, columns=["well", "depth", "core_gr_api"]), dec)
+    write_csv(out / "core_geochem.csv", pd.DataFrame(plug_rows, columns=GEOCHEM_COLUMNS), dec)
     basin = {
         "generator": "facies_ml.synthetic", "generator_version": str(cfg["generator_version"]),
         "seed": seed, "basin": cfg["basin"], "formation": cfg["formation"], "invented": True,
@@ -527,14 +539,16 @@ def generate_basin(out_dir: str | Path, n_wells: int = 10, n_cored: int = 5,
     write_json(out / "basin.json", basin)
     (out / "README.md").write_text(_readme(cfg, seed, plan, extras), newline="\n")
     files += [out / "truth" / "surfaces.csv", out / "core_intervals.csv", out / "core_gamma.csv",
-              out / "basin.json", out / "README.md"]
+              out / "core_geochem.csv", out / "basin.json", out / "README.md"]
     return BasinSummary(out_dir=out, wells={w["name"]: w["role"] for w in plan}, files=files)
 
 
 def _core(w: dict[str, Any], cored_no: int, depth: np.ndarray, step: float, f: float,
           sim: dict[str, Any], cfg: dict[str, Any], seed: int, idx: int,
-          core_rows: list[dict[str, Any]], gamma_rows: list[dict[str, Any]]) -> dict[str, Any]:
-    """Core intervals and core gamma of one cored well (appended in core depth)."""
+          core_rows: list[dict[str, Any]], gamma_rows: list[dict[str, Any]],
+          plug_rows: list[dict[str, Any]]) -> dict[str, Any]:
+    """Core intervals, core gamma and core-plug geochemistry of one cored well (appended in
+    core depth)."""
     cc = cfg["core"]
     dec = int(cfg["logging"]["rounding"])
     n = len(depth)
@@ -570,8 +584,60 @@ def _core(w: dict[str, Any], cored_no: int, depth: np.ndarray, step: float, f: f
     for k in np.flatnonzero(keep):
         gamma_rows.append({"well": w["name"], "depth": round(depth[k] - shift, dec),
                            "core_gr_api": round(float(g[k]), 2)})
+    plug_rows += _plugs(w["name"], depth, step, f, shift, keep, sim["truth"], cfg,
+                        np.random.default_rng([seed, 9, idx]))
     return {"core_shift": shift, "core_top": round(depth[i0] - step / 2 - shift, dec),
             "core_base": round(depth[i1 - 1] + step / 2 - shift, dec), "lost_core": lost}
+
+
+def _plugs(name: str, depth: np.ndarray, step: float, f: float, shift: float,
+           keep: np.ndarray, truth: dict[str, np.ndarray], cfg: dict[str, Any],
+           rng: np.random.Generator) -> list[dict[str, Any]]:
+    """Core-plug TOC and XRD rows of one cored well (core depth, the well's unit).
+
+    Plugs are taken along the recovered core (``keep``, log order; lost core has none), one
+    every ``core.plugs.spacing_ft`` on average (each gap 0.75-1.25 times it). A plug sits at a
+    core depth within 0.4 step of a log sample (log depth = core depth + ``shift``) and
+    measures that sample's true composition plus lab noise: TOC (wt % of the bulk rock) with
+    sigma = abs + rel * TOC; quartz, carbonate (calcite) and clay as wt % of the crystalline
+    fraction (XRD, common practice) with ``xrd_noise_wt_pct`` each, then re-closed to 100.
+    Its own random stream (``rng``), so the other files do not change.
+    """
+    pc = cfg["core"]["plugs"]
+    where = np.flatnonzero(keep)
+    if where.size == 0:
+        return []
+    spacing = float(pc["spacing_ft"]) * f          # in the well's unit
+    chosen: list[int] = []
+    pos = float(depth[where[0]]) + float(rng.uniform(0.0, spacing))
+    last = float(depth[where[-1]])
+    while pos <= last:
+        k = int(np.argmin(np.abs(depth[where] - pos)))
+        if not chosen or where[k] != chosen[-1]:
+            chosen.append(int(where[k]))
+        pos += spacing * float(rng.uniform(0.75, 1.25))
+    ks = np.asarray(chosen, dtype=int)
+    n = ks.size
+    dens = cfg["petrophysics"]["density_g_cc"]
+    wt = mineral_weight_percent({"quartz": truth["vquartz_v_v"][ks],
+                                 "carbonate": truth["vcalcite_v_v"][ks],
+                                 "clay": truth["vclay_v_v"][ks]},
+                                {"quartz": dens["quartz"], "carbonate": dens["calcite"],
+                                 "clay": dens["clay"]})
+    toc = truth["toc_wt_pct"][ks]
+    toc = toc + (float(pc["toc_noise_abs_wt_pct"]) + float(pc["toc_noise_rel"]) * toc) * \
+        rng.standard_normal(n)
+    xrd = np.vstack([wt[k] for k in ("quartz", "carbonate", "clay")])
+    xrd = np.clip(xrd + float(pc["xrd_noise_wt_pct"]) * rng.standard_normal(xrd.shape), 0.0, None)
+    xrd = 100.0 * xrd / xrd.sum(axis=0)
+    offset = rng.uniform(-0.4, 0.4, n) * step
+    rows = []
+    for j, k in enumerate(ks):
+        rows.append({"well": name, "depth": round(float(depth[k] + offset[j] - shift), 2),
+                     "toc_wt_pct": f"{max(float(toc[j]), 0.0):.2f}",
+                     "quartz_wt_pct": f"{xrd[0, j]:.1f}", "carbonate_wt_pct": f"{xrd[1, j]:.1f}",
+                     "clay_wt_pct": f"{xrd[2, j]:.1f}"})
+    return rows
 
 
 def _extra_meta(sim: dict[str, Any], depth: np.ndarray, step: float,

@@ -95,3 +95,16 @@ def rock_logs(clay: np.ndarray, quartz: np.ndarray, calcite: np.ndarray, phi: np
         "gr_api": gr, "k_pct": k, "u_ppm": u, "th_ppm": th, "rt_ohmm": rt, "rhob_g_cc": rhob,
         "nphi_v_v": nphi, "pe_b_e": pe, "dtc_us_ft": dt,
     }
+
+
+def mineral_weight_percent(volumes: Mapping[str, np.ndarray], densities: Mapping[str, float]
+                           ) -> dict[str, np.ndarray]:
+    """Weight % of each mineral in the CRYSTALLINE (mineral) fraction, as XRD reports it.
+
+    ``volumes``: bulk volumes (v/v) of the minerals only (kerogen and pore fluid left out);
+    ``densities``: grain densities (g/cc). Mass = volume * density (common practice), so
+    ``wt%_i = 100 * V_i rho_i / sum_j V_j rho_j``; the shares sum to 100.
+    """
+    mass = {k: np.asarray(v, dtype=float) * float(densities[k]) for k, v in volumes.items()}
+    total = sum(mass.values())
+    return {k: 100.0 * m / total for k, m in mass.items()}
