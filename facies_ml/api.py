@@ -188,10 +188,13 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
     if datum is not None and str(datum) not in known:
         raise InputError(f"datum MFS {datum!r} is not a basin sequence of this model (known: "
                          f"{', '.join(known) or 'none'})")
-    files = list_well_files(wells_path)
+    files = list_well_files(wells_path, config=pipe.config)
     if not files:
-        raise InputError("no well files (*.las, *.csv, *.parquet) in the folder",
-                         file=str(wells_path))
+        tables = list_well_files(wells_path)
+        raise InputError("no well found: " + (
+            f"the table(s) {', '.join(f.name for f in tables[:3])} are not well logs (no depth "
+            "column or no known curve)" if tables else
+            "the folder is empty of *.las, *.csv, *.parquet files"), file=str(wells_path))
     keep: bool | frozenset[str] = False
     if plots:
         first = files[:max(1, int(report.get("panel_max_wells", 12)))]

@@ -8,6 +8,7 @@ flat however many wells there are.
 
 from __future__ import annotations
 
+import logging
 import time
 from collections.abc import Iterable
 from dataclasses import dataclass, field
@@ -16,6 +17,7 @@ from typing import Any
 
 from tqdm import tqdm
 
+from facies_ml.config import Config
 from facies_ml.errors import InputError
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.landing import landing_summary
@@ -26,6 +28,8 @@ from facies_ml.report.outputs import (
     write_prediction_parquet,
 )
 from facies_ml.wells.las import one_line
+
+log = logging.getLogger(__name__)
 
 WELL_SUFFIXES = (".las", ".csv", ".parquet", ".pq")
 
@@ -48,16 +52,37 @@ class WellResult:
     notes: list[str] = field(default_factory=list)  # e.g. a figure that could not be drawn
 
 
-def list_well_files(path: str | Path, exclude: Iterable[str] = ()) -> list[Path]:
-    """Files under a folder that may hold wells (sorted), or the single file given."""
+def list_well_files(path: str | Path, exclude: Iterable[str] = (),
+                    config: Config | None = None) -> list[Path]:
+    """Files under a folder that may hold wells (sorted), or the single file given.
+
+    With ``config``, tables in the folder that are not well tables (a core-interval, core-gamma
+    or core-plug CSV kept beside the logs: no depth column or no known curve) are left out,
+    as :func:`facies_ml.wells.read_wells` does for a folder, and logged at INFO."""
     path = Path(path)
     if path.is_file():
         return [path]
     if not path.is_dir():
         raise InputError("wells folder or file not found", file=str(path))
     skip = set(exclude)
-    return sorted(p for p in path.iterdir()
-                  if p.is_file() and p.suffix.lower() in WELL_SUFFIXES and p.name not in skip)
+    files = sorted(p for p in path.iterdir()
+                   if p.is_file() and p.suffix.lower() in WELL_SUFFIXES and p.name not in skip)
+    if config is None:
+        return files
+    from facies_ml.wells.table import table_kind
+
+    kept = []
+    for f in files:
+        if f.suffix.lower() != ".las":
+            try:
+                ok, why = table_kind(f, config)
+            except InputError:
+                ok, why = True, ""          # unreadable: predict reports it as a failure
+            if not ok:
+                log.info("skipped %s: not a well table (%s)", f, why)
+                continue
+        kept.append(f)
+    return kept
 
 
 def write_well_outputs(pipe: FaciesPipeline, pred: WellPrediction, out_dir: str | Path) -> None:
