@@ -40,6 +40,16 @@ def _blank(value: object) -> bool:
         "", "nan", "<NA>")
 
 
+def _row_well(rec: dict[str, Any], src: str, row: int, known: set[str] | None) -> str:
+    """The well name of one core-file row (1-based ``row``); blank or unknown is an error."""
+    well = "" if _blank(rec["well"]) else str(rec["well"]).strip()
+    if not well:
+        raise InputError("blank well name", file=src, row=row)
+    if known is not None and well not in known:
+        raise InputError("well is not among the wells read", file=src, row=row, well=well)
+    return well
+
+
 def _number(value: object, src: str, row: int, column: str) -> float:
     try:
         out = float(str(value).strip())
@@ -72,11 +82,7 @@ def read_core_intervals(path: str | Path, scheme: FaciesScheme,
     tracts_upper = [t.upper() for t in scheme.systems_tracts]
     rows: list[dict[str, Any]] = []
     for i, rec in enumerate(frame.to_dict("records"), start=1):
-        well = "" if _blank(rec["well"]) else str(rec["well"]).strip()
-        if not well:
-            raise InputError("blank well name", file=src, row=i)
-        if known is not None and well not in known:
-            raise InputError("well is not among the wells read", file=src, row=i, well=well)
+        well = _row_well(rec, src, i, known)
         top = _number(rec["top"], src, i, "top")
         base = _number(rec["base"], src, i, "base")
         if top >= base:

@@ -42,7 +42,7 @@ import pandas as pd
 from sklearn.base import BaseEstimator, RegressorMixin, clone
 from sklearn.linear_model import Ridge
 
-from facies_ml.core import _blank, _number, _read_csv
+from facies_ml.core import _blank, _number, _read_csv, _row_well
 from facies_ml.errors import InputError
 from facies_ml.features import delta_log_r, toc_passey
 from facies_ml.settings import GeochemSettings
@@ -106,11 +106,7 @@ def read_geochem(path: str | Path, settings: GeochemSettings,
     tol = float(settings.mineral_sum_tolerance_wt_pct)
     rows: list[dict[str, Any]] = []
     for i, rec in enumerate(frame.to_dict("records"), start=1):
-        well = "" if _blank(rec["well"]) else str(rec["well"]).strip()
-        if not well:
-            raise InputError("blank well name", file=src, row=i)
-        if known is not None and well not in known:
-            raise InputError("well is not among the wells read", file=src, row=i, well=well)
+        well = _row_well(rec, src, i, known)
         out: dict[str, Any] = {"well": well, "depth": _number(rec["depth"], src, i, "depth")}
         for col in (TOC_COLUMN, *minerals):
             value = rec[col]
