@@ -36,7 +36,7 @@ from facies_ml.report.outputs import (
     write_table,
     write_tops,
 )
-from facies_ml.report.run_folder import RunFolder, stale_staging_hours
+from facies_ml.report.run_folder import RunFolder
 from facies_ml.store import load_version, read_registry, save_version
 from facies_ml.wells import Well, read_wells
 from facies_ml.wells.table import with_table_depth_unit
@@ -72,7 +72,7 @@ def _run_folder(out_dir: str | Path, cfg: Config, protect: list[Any] | None = No
     run manifest; a ``Config`` object given as ``config`` is recorded by its file only."""
     files = {k: (v if isinstance(v, (str, Path)) else None) for k, v in inputs.items()}
     return RunFolder(out_dir, inputs=files, protect=protect or [],
-                     stale_hours=stale_staging_hours(cfg.section("report")))
+                     stale_hours=cfg.settings.report.stale_staging_hours)
 
 
 def load_project(wells_path: str | Path, core_path: str | Path | None, config: Config,
@@ -199,17 +199,13 @@ def predict(model_dir: str | Path, wells_path: str | Path, out_dir: str | Path,
     if plots:
         first = files[:max(1, int(report.get("panel_max_wells", 12)))]
         keep = frozenset(panel_wells) if panel_wells else frozenset(str(f) for f in first)
-    with RunFolder(out_dir, inputs={"wells": wells_path}, protect=[model_dir],
-                   stale_hours=stale_staging_hours(report)) as run:
+    with _run_folder(out_dir, pipe.config, protect=[model_dir], wells=wells_path) as run:
         stage = run.path
         rows = run_batch(pipe, files, stage, n_jobs=n_jobs, scheduler=scheduler,
                          progress=progress, keep_predictions=keep,
                          section_dir=stage / "figures" if plots else None)
         preds = [r[1] for r in rows if isinstance(r, tuple)]
         results = [r[0] if isinstance(r, tuple) else r for r in rows]
-        if not results:
-            raise InputError("no well found in the well files (only tables that are not well "
-                             "logs)", file=str(wells_path))
         results, refused = refuse_duplicate_names(results, stage)
         preds = [p for p in preds if p.well.name not in refused]
         summary = batch_summary(results)
@@ -389,11 +385,10 @@ def retrain(model_dir: str | Path, wells_path: str | Path, core_path: str | Path
         well_scores,
     )
     from facies_ml.evaluation import score_well
-    from facies_ml.settings import check_settings
 
     champion, manifest = load_version(model_dir)
     rule_cfg = _config(config)
-    evaluation = check_settings(rule_cfg.raw).evaluation
+    evaluation = rule_cfg.settings.evaluation
     rule = PromotionRule.from_settings(evaluation.promotion, rule_cfg.seed)
     cfg = rule_cfg if config is not None else champion.config
     cfg = with_table_depth_unit(cfg, depth_unit)                  # --depth-unit (tables)
@@ -477,8 +472,7 @@ def rank_cores(model_dir: str | Path, wells_path: str | Path, out_dir: str | Pat
     pipe, manifest = load_version(model_dir)
     run = None
     if out_dir is not None:
-        run = RunFolder(out_dir, inputs={"wells": wells_path}, protect=[model_dir],
-                        stale_hours=stale_staging_hours(pipe.config.section("report")))
+        run = _run_folder(out_dir, pipe.config, protect=[model_dir], wells=wells_path)
     with run or contextlib.nullcontext():
         wells, failures = read_wells(Path(wells_path), pipe.config, on_error="collect")
         skip = set(exclude or []) | set(getattr(pipe, "training_wells_", []))

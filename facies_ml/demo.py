@@ -24,7 +24,7 @@ from facies_ml.evaluation import (
 )
 from facies_ml.pipeline import FaciesPipeline, WellPrediction
 from facies_ml.report.outputs import write_json, write_table
-from facies_ml.report.run_folder import RunFolder, stale_staging_hours
+from facies_ml.report.run_folder import RunFolder
 from facies_ml.resources import demo_wells_dir
 from facies_ml.store import save_version
 from facies_ml.wells.clean import nearest_samples
@@ -110,7 +110,7 @@ def run_demo(out: str | Path = "demo_output", wells_dir: str | Path | None = Non
     gamma = wells_dir / "core_gamma.csv"
     with RunFolder(out, inputs={"wells": wells_dir, "core": core,
                                 "core_gamma": gamma if gamma.is_file() else None},
-                   stale_hours=stale_staging_hours(cfg.section("report"))) as run:
+                   stale_hours=cfg.settings.report.stale_staging_hours) as run:
         result = _demo_steps(run, wells_dir, core, gamma, cfg, t0, progress)
     print(CAUTION)
     return result

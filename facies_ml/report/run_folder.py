@@ -56,19 +56,6 @@ _UMASK = os.umask(0)
 os.umask(_UMASK)
 
 
-def stale_staging_hours(report_settings: Mapping[str, Any]) -> float:
-    """``report.stale_staging_hours`` from a ``report:`` settings section (hours).
-
-    Settings stored with a model saved before this key existed fall back to the bundled
-    ``configs/default.yaml`` value."""
-    value = report_settings.get("stale_staging_hours")
-    if value is None:
-        from facies_ml.config import load_config
-
-        value = load_config().section("report")["stale_staging_hours"]
-    return float(value)
-
-
 def sha256_of(path: Path) -> str:
     """SHA-256 (hex) of a file's bytes (FIPS 180-4, as ``hashlib.sha256``)."""
     with open(path, "rb") as fh:
@@ -116,7 +103,7 @@ class RunFolder:
     ``inputs`` maps a role (``wells``, ``core``, ``config``, ...) to a file or folder (None =
     not given); every file (for a folder, every well file in it, not recursing) is hashed
     into the manifest. ``protect`` are further paths ``out`` must not contain (e.g. the model
-    folder). ``stale_hours``: see :func:`stale_staging_hours`.
+    folder). ``stale_hours``: the setting ``report.stale_staging_hours`` (hours).
 
     Use ``note(**info)`` to add facts to the manifest (model version, wells done/failed) and
     ``discard()`` to end a run that produced nothing worth keeping without touching ``out``.
